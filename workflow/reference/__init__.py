@@ -1,0 +1,1 @@
+"""Closed-form reference solutions that the validation suite compares openEMS results against."""
