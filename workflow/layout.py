@@ -1,0 +1,78 @@
+"""Where a study's outputs live, and the study's plan file.
+
+``results/<study>/``
+    ``plan.json``          the expanded cases of the last preparation: id, label, parameters, ports
+    ``cases/<case_id>/``   one folder per case (the case-folder contract in DEVELOPERS.md)
+    ``tables/``            merged tables (:mod:`bodysweep.workflow.collect`)
+    ``report/``            plots and ``report.md`` (:mod:`bodysweep.workflow.report`)
+    ``logs/``              Snakemake logs of ``bodysweep run``
+"""
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+from .atomic import json_text, write_if_changed
+
+PLAN_VERSION = 1
+
+
+@dataclass(frozen=True)
+class StudyLayout:
+    """Paths of one study's output tree below ``root`` (= ``<results_dir>/<study name>``)."""
+
+    root: Path
+
+    @classmethod
+    def of(cls, study_name: str, results_dir: str | Path = "results") -> "StudyLayout":
+        if not study_name or "/" in study_name or study_name in (".", ".."):
+            raise ValueError(f"study name {study_name!r} cannot be a folder name; use letters, digits, - and _")
+        return cls(Path(results_dir) / study_name)
+
+    @property
+    def cases_dir(self) -> Path:
+        return self.root / "cases"
+
+    def case_dir(self, case_id: str) -> Path:
+        return self.cases_dir / case_id
+
+    @property
+    def tables_dir(self) -> Path:
+        return self.root / "tables"
+
+    @property
+    def report_dir(self) -> Path:
+        return self.root / "report"
+
+    @property
+    def report_file(self) -> Path:
+        return self.report_dir / "report.md"
+
+    @property
+    def logs_dir(self) -> Path:
+        return self.root / "logs"
+
+    @property
+    def plan_file(self) -> Path:
+        return self.root / "plan.json"
+
+    def table_files(self) -> list[Path]:
+        """The table files the collect step writes (Parquet and CSV of each table)."""
+        from .collect import TABLE_NAMES
+
+        return [self.tables_dir / f"{n}.{ext}" for n in TABLE_NAMES for ext in ("parquet", "csv")]
+
+
+def read_plan(layout: StudyLayout) -> dict:
+    """The study's ``plan.json`` (``{"study", "plan_version", "cases": [entry, ...]}``)."""
+    try:
+        return json.loads(layout.plan_file.read_text())
+    except FileNotFoundError:
+        raise FileNotFoundError(f"{layout.plan_file} does not exist; run `bodysweep run` (or prepare) first") from None
+
+
+def write_plan(layout: StudyLayout, study_name: str, entries: list[dict]) -> bool:
+    """Write ``plan.json`` if its content changed; True if written."""
+    return write_if_changed(layout.plan_file, json_text({"study": study_name, "plan_version": PLAN_VERSION,
+                                                         "cases": entries}))

@@ -1,0 +1,357 @@
+"""Preparing case folders, the per-case state, and driving Snakemake.
+
+Rerun-only-what-changed rests on two things:
+
+1. **Identity-based folders.** A case's folder is named by its ``case_id``, a hash of the fully resolved
+   case (scene in SI, frequency, solver and SAR settings, builder/adapter/post versions). A change that
+   alters results gives a new id and so a new, empty folder; an unchanged case keeps its folder.
+2. **Write-if-changed.** :func:`prepare` rewrites ``case.json`` (and ``plan.json``) only when the content
+   differs, so modification times stay and Snakemake sees nothing new.
+
+Snakemake is therefore run with ``--rerun-triggers mtime``: the default triggers also rerun jobs whose
+rule code or params changed, which would rerun every case after any edit of a rule file or a helper
+that does not alter results. What alters results is already in the case id (bump the version constant
+of the part that changed), so modification times are the only trigger we need.
+"""
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import subprocess
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterable
+
+from .atomic import json_text, write_if_changed, write_json
+from .layout import StudyLayout, read_plan, write_plan
+
+#: statuses a finished case can carry in metrics.json that count as a result (not a failure)
+OK_STATUSES = ("ok", "warning")
+#: per-case states reported by :func:`case_states`
+STATES = ("done", "to run", "changed", "failed")
+
+REPO_ROOT = Path(__file__).resolve().parent.parent
+SNAKEFILE = REPO_ROOT / "Snakefile"
+PROFILES_DIR = Path(__file__).resolve().parent / "profiles"
+
+
+# -- the study --------------------------------------------------------------------------------------------
+def load(study_path: str | Path):
+    """Load a study file (raises the study layer's ``StudyError`` with a one-line message)."""
+    from .study import load_study
+
+    return load_study(study_path)
+
+
+def expand_cases(study) -> list:
+    from .study import expand
+
+    return expand(study)
+
+
+def parameter_key(parameters: dict) -> str:
+    """Canonical text of a sweep point (its parameters); the same point in two plans has the same key."""
+    return json.dumps(parameters, sort_keys=True, separators=(",", ":"), default=str)
+
+
+def plan_entry(case_dict: dict) -> dict:
+    """The plan entry of one case (what collectors and the Snakefile need without opening case.json)."""
+    solver = case_dict.get("solver") or {}
+    ports = solver.get("excite_ports") or [1]
+    return {"case_id": case_dict["case_id"], "label": case_dict.get("label", ""),
+            "parameters": case_dict.get("parameters", {}), "frequency_Hz": case_dict.get("frequency_Hz"),
+            "ports": [int(p) for p in ports]}
+
+
+@dataclass
+class Prepared:
+    """Result of :func:`prepare`."""
+
+    study: Any
+    layout: StudyLayout
+    entries: list[dict]
+    previous: dict[str, str] = field(default_factory=dict)  # parameter key -> case id of the last plan
+    written: int = 0  # case.json files (re)written
+
+
+def expand_study(study_path: str | Path, results_dir: str | Path = "results") -> tuple[Any, StudyLayout, list[dict], list[dict]]:
+    """Load and expand a study without writing anything: ``(study, layout, entries, case_dicts)``."""
+    study = load(study_path)
+    layout = StudyLayout.of(study.name, results_dir)
+    dicts = [c.to_dict() for c in expand_cases(study)]
+    return study, layout, [plan_entry(d) for d in dicts], dicts
+
+
+def previous_plan(layout: StudyLayout) -> dict[str, str]:
+    """``{parameter key: case id}`` of the study's last ``plan.json`` (empty if none)."""
+    try:
+        cases = read_plan(layout)["cases"]
+    except (FileNotFoundError, ValueError, KeyError):
+        return {}
+    return {parameter_key(e.get("parameters", {})): e["case_id"] for e in cases}
+
+
+def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prepared:
+    """Write every case folder's ``case.json`` and the study's ``plan.json``, each only if changed."""
+    study, layout, entries, dicts = expand_study(study_path, results_dir)
+    ids = [e["case_id"] for e in entries]
+    if len(set(ids)) != len(ids):
+        dup = sorted({i for i in ids if ids.count(i) > 1})
+        raise ValueError(f"study {study.name!r}: {len(ids) - len(set(ids))} cases are identical to others "
+                         f"(case ids {dup[:5]}); remove the duplicate sweep points")
+    previous = previous_plan(layout)
+    written = 0
+    for d in dicts:
+        written += write_if_changed(layout.case_dir(d["case_id"]) / "case.json", json_text(d))
+    write_plan(layout, study.name, entries)
+    return Prepared(study, layout, entries, previous, written)
+
+
+# -- the state of a case ----------------------------------------------------------------------------------
+def read_json(path: Path) -> dict | None:
+    try:
+        with open(path, "rb") as fh:
+            return json.load(fh)
+    except (FileNotFoundError, ValueError):
+        return None
+
+
+def case_state(layout: StudyLayout, entry: dict, previous: dict[str, str] | None = None) -> tuple[str, str]:
+    """``(state, reason)`` of a case: ``done``, ``failed``, ``changed`` or ``to run``.
+
+    ``changed``: the same sweep point was in the last plan under another case id (its inputs changed) and
+    the new folder has no result yet. ``to run``: a new point, or one that never finished.
+    """
+    m = read_json(layout.case_dir(entry["case_id"]) / "metrics.json")
+    if m is not None:
+        if str(m.get("status")) in OK_STATUSES:
+            return "done", ""
+        return "failed", str(m.get("reason", ""))
+    old = (previous or {}).get(parameter_key(entry.get("parameters", {})))
+    if old is not None and old != entry["case_id"]:
+        return "changed", f"was {old}"
+    return "to run", ""
+
+
+def case_states(layout: StudyLayout, entries: list[dict], previous: dict[str, str] | None = None) -> list[tuple[str, str]]:
+    return [case_state(layout, e, previous) for e in entries]
+
+
+def reset_failed(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
+    """Remove the outputs of failed cases (keeping ``case.json``) so that the next run redoes them.
+
+    Returns the ids of the cases reset.
+    """
+    reset = []
+    for e in entries:
+        d = layout.case_dir(e["case_id"])
+        m = read_json(d / "metrics.json")
+        if m is None or str(m.get("status")) in OK_STATUSES:
+            continue
+        for p in d.iterdir():
+            if p.name == "case.json":
+                continue
+            if p.is_dir():
+                shutil.rmtree(p)
+            else:
+                p.unlink()
+        reset.append(e["case_id"])
+    return reset
+
+
+def failure_record(entry: dict, reason: str, stage: str) -> dict:
+    """A ``metrics.json`` for a case that produced no result."""
+    return {"status": "failed", "reason": f"{stage}: {reason}", "case_id": entry["case_id"],
+            "frequency_Hz": entry.get("frequency_Hz")}
+
+
+def mark_unfinished(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
+    """After a run: write a failure record for each case whose jobs died without writing ``metrics.json``.
+
+    The solve and finish steps record their own failures; this catches what they cannot (a crashed
+    engine process, a killed job). Returns the ids marked.
+    """
+    marked = []
+    for e in entries:
+        d = layout.case_dir(e["case_id"])
+        if (d / "metrics.json").exists():
+            continue
+        logs = sorted(str(p.relative_to(d)) for p in (d / "logs").glob("*.log")) if (d / "logs").exists() else []
+        write_json(d / "metrics.json", failure_record(
+            e, f"a job of this case ended without a result (crashed or killed); see {', '.join(logs) or 'the run log'}",
+            "run"))
+        marked.append(e["case_id"])
+    return marked
+
+
+# -- Snakemake -------------------------------------------------------------------------------------------
+def resolve_profile(name_or_path: str | None) -> Path | None:
+    """A profile folder: a path to a folder holding ``config.yaml``, or the name of one in workflow/profiles/."""
+    if name_or_path is None:
+        return None
+    p = Path(name_or_path)
+    if p.is_dir():
+        return p.resolve()
+    q = PROFILES_DIR / name_or_path
+    if q.is_dir():
+        return q
+    known = sorted(x.name for x in PROFILES_DIR.iterdir() if (x / "config.yaml").exists())
+    raise ValueError(f"profile {name_or_path!r} is neither a folder nor one of {known}")
+
+
+def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results", workdir: str | Path = ".",
+                   cores: int | None = None, jobs: int | None = None, threads_per_job: int | None = None,
+                   profile: str | None = "local", targets: Iterable[str] = (), dry_run: bool = False,
+                   extra: Iterable[str] = ()) -> list[str]:
+    """The ``snakemake`` command line for a study (without the interpreter prefix)."""
+    args = ["--snakefile", str(SNAKEFILE), "--directory", str(Path(workdir).resolve()),
+            "--configfile", str(Path(study_path).resolve()),
+            "--config", f"study_file={Path(study_path).resolve()}", f"results_dir={results_dir}"]
+    if threads_per_job is not None:
+        args.append(f"threads_per_job={int(threads_per_job)}")
+    prof = resolve_profile(profile)
+    if prof is not None:
+        args += ["--profile", str(prof)]
+    if cores is not None:
+        args += ["--cores", str(int(cores))]
+    elif prof is None:
+        args += ["--cores", "2"]
+    if jobs is not None:
+        args += ["--jobs", str(int(jobs))]
+    # see the module docstring: identity-based folders make modification times the only trigger needed
+    args += ["--rerun-triggers", "mtime"]
+    if dry_run:
+        args += ["--dry-run", "--quiet", "rules"]
+    args += list(extra)
+    args += list(targets)
+    return args
+
+
+def snakemake_cmd(*args: str) -> list[str]:
+    return [sys.executable, "-m", "snakemake", *args]
+
+
+_STATS_ROW = re.compile(r"^\s*([A-Za-z_][\w]*)\s+(\d+)\s*$")
+
+
+def parse_job_stats(text: str) -> dict[str, int]:
+    """Per-rule job counts from Snakemake's ``Job stats`` table (empty when nothing is to be done)."""
+    counts: dict[str, int] = {}
+    lines = text.splitlines()
+    for k, line in enumerate(lines):
+        if line.strip().startswith("Job stats"):
+            for row in lines[k + 1:]:
+                if not row.strip() or row.strip().startswith("-") or row.split()[0] == "job":
+                    if counts and not row.strip():
+                        break
+                    continue
+                m = _STATS_ROW.match(row)
+                if not m:
+                    break
+                if m.group(1) != "total":
+                    counts[m.group(1)] = int(m.group(2))
+            break
+    return counts
+
+
+def scheduled_jobs(study_path: str | Path, *, results_dir: str | Path = "results", workdir: str | Path = ".",
+                   targets: Iterable[str] = ()) -> dict[str, int]:
+    """Jobs Snakemake would run for the study now, per rule (a dry run; ``{}`` when nothing is to be done)."""
+    cmd = snakemake_cmd(*snakemake_args(study_path, results_dir=results_dir, workdir=workdir, cores=1,
+                                        profile="local", targets=targets, dry_run=True))
+    proc = subprocess.run(cmd, capture_output=True, text=True, cwd=str(workdir))
+    text = proc.stdout + "\n" + proc.stderr
+    if proc.returncode != 0:
+        raise RuntimeError(f"snakemake dry run failed (exit {proc.returncode}):\n{text[-3000:]}")
+    if "Nothing to be done" in text:
+        return {}
+    counts = parse_job_stats(text)
+    if not counts:
+        raise RuntimeError(f"could not read the job count from the snakemake dry run:\n{text[-3000:]}")
+    return counts
+
+
+def format_duration(s: float) -> str:
+    s = max(0, int(round(s)))
+    h, r = divmod(s, 3600)
+    m, sec = divmod(r, 60)
+    return f"{h}h{m:02d}m{sec:02d}s" if h else (f"{m}m{sec:02d}s" if m else f"{sec}s")
+
+
+def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], log_path: Path,
+                  workdir: str | Path = ".", poll_s: float = 3.0,
+                  echo: Callable[[str], None] = print) -> int:
+    """Run Snakemake in a subprocess, its output to ``log_path``; print progress (cases done/total, ETA).
+
+    Returns Snakemake's exit code.
+    """
+    log_path.parent.mkdir(parents=True, exist_ok=True)
+    todo = [e for e in entries if not (layout.case_dir(e["case_id"]) / "metrics.json").exists()]
+    total, start = len(todo), time.monotonic()
+    echo(f"running {total} of {len(entries)} cases (log: {log_path})")
+    last = None
+    with open(log_path, "ab") as log:
+        proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir))
+        while True:
+            rc = proc.poll()
+            done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
+            if total and done != last:
+                el = time.monotonic() - start
+                eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
+                echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
+                last = done
+            if rc is not None:
+                return rc
+            time.sleep(poll_s)
+
+
+# -- the Snakefile's view ----------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class SnakefileContext:
+    """What the Snakefile needs: the layout, the cases and their excited ports, threads per solve job."""
+
+    layout: StudyLayout
+    entries: tuple
+    threads_per_job: int
+
+    @property
+    def case_ids(self) -> list[str]:
+        return [e["case_id"] for e in self.entries]
+
+    def ports(self, case_id: str) -> list[int]:
+        return self._ports[case_id]
+
+    @property
+    def _ports(self) -> dict[str, list[int]]:
+        d = self.__dict__.get("_ports_cache")
+        if d is None:
+            d = {e["case_id"]: e["ports"] for e in self.entries}
+            object.__setattr__(self, "_ports_cache", d)
+        return d
+
+
+def default_threads_per_job() -> int:
+    """One engine thread per core of this machine, at most 2 (two small cases in parallel scale better)."""
+    return max(1, min(2, os.cpu_count() or 1))
+
+
+def snakefile_context(config: dict, *, main_process: bool, configfiles: list | None = None) -> SnakefileContext:
+    """Prepare (main process) or read (job processes) the study the Snakefile was started with.
+
+    The study file is ``config["study_file"]`` (set by ``bodysweep run``) or the last ``--configfile``.
+    """
+    study_file = config.get("study_file") or (str(configfiles[-1]) if configfiles else None)
+    if not study_file:
+        raise ValueError("no study given: run `snakemake --configfile studies/<study>.yaml` or `bodysweep run <study>.yaml`")
+    results_dir = config.get("results_dir", "results")
+    threads = int(config.get("threads_per_job") or default_threads_per_job())
+    if main_process:
+        prep = prepare(study_file, results_dir)
+        return SnakefileContext(prep.layout, tuple(prep.entries), threads)
+    study = load(study_file)
+    layout = StudyLayout.of(study.name, results_dir)
+    return SnakefileContext(layout, tuple(read_plan(layout)["cases"]), threads)
