@@ -1,0 +1,250 @@
+"""The study report: PNG plots and a short Markdown summary in ``results/<study>/report/``.
+
+Plots
+-----
+``s21_vs_<parameter>.png``        S21 (dB) and delivered implant power (dBm) against each swept parameter
+``peak_sar.png``                  peak 1 g / 10 g averaged SAR per watt of input power, per case
+``sar_section_<case_id>.png``     SAR cross-sections through the SAR peak of the best case (result.h5)
+"""
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .atomic import atomic_path, write_text
+from .layout import StudyLayout, read_plan
+
+SAFETY_NOTE = ("Results are simulation estimates from a simplified model of tissue and antennas. Exposure "
+               "compliance is decided under the applicable standards, local regulations and licensed practice.")
+
+MAX_SERIES = 10
+MAX_BARS = 60
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _save(fig, path: Path) -> Path:
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=110, bbox_inches="tight")
+    _plt().close(fig)
+    return path
+
+
+def _safe(name: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("_")
+
+
+def swept_parameters(summary: pd.DataFrame, parameter_columns: list[str]) -> list[str]:
+    """The parameter columns that take more than one value in the study."""
+    return [c for c in parameter_columns if c in summary and summary[c].nunique(dropna=False) > 1]
+
+
+def best_case(summary: pd.DataFrame) -> pd.Series | None:
+    """The finished case that delivers most power to the implant within the SAR limit (else: highest S21)."""
+    ok = summary[summary["status"].isin(["ok", "warning"])]
+    if ok.empty:
+        return None
+    for col in ("delivered_W", "S21_dB"):
+        if col in ok and ok[col].notna().any():
+            return ok.loc[ok[col].idxmax()]
+    return ok.iloc[0]
+
+
+def _x_values(col: pd.Series) -> tuple[np.ndarray, list[str] | None]:
+    num = pd.to_numeric(col, errors="coerce")
+    if num.notna().all():
+        return num.to_numpy(float), None
+    cats = sorted(col.astype(str).unique())
+    return col.astype(str).map({c: i for i, c in enumerate(cats)}).to_numpy(float), cats
+
+
+def plot_vs_parameter(summary: pd.DataFrame, param: str, others: list[str], path: Path) -> Path:
+    """S21 (dB) and delivered power (dBm) against ``param``, one line per combination of ``others``."""
+    plt = _plt()
+    ok = summary[summary["status"].isin(["ok", "warning"])]
+    fig, axes = plt.subplots(1, 2, figsize=(10, 4))
+    groups = list(ok.groupby(others, dropna=False)) if others else [((), ok)]
+    x_all, cats = _x_values(summary[param])
+    cat_map = {c: i for i, c in enumerate(cats)} if cats else None
+    for k, (key, g) in enumerate(groups[:MAX_SERIES]):
+        key = key if isinstance(key, tuple) else (key,)
+        label = ", ".join(f"{o}={v}" for o, v in zip(others, key)) or None
+        x = (g[param].astype(str).map(cat_map).to_numpy(float) if cat_map else pd.to_numeric(g[param]).to_numpy(float))
+        order = np.argsort(x)
+        for ax, col in zip(axes, ("S21_dB", "delivered_dBm")):
+            ax.plot(x[order], g[col].to_numpy(float)[order], marker="o", label=label)
+    for ax, ylab in zip(axes, ("S21 (dB)", "delivered implant power at the SAR limit (dBm)")):
+        ax.set_xlabel(param)
+        ax.set_ylabel(ylab)
+        ax.grid(True, alpha=0.3)
+        if cats:
+            ax.set_xticks(range(len(cats)), cats, rotation=20)
+    if len(groups) > 1:
+        axes[1].legend(fontsize=7, loc="best")
+    extra = f" (first {MAX_SERIES} of {len(groups)} series)" if len(groups) > MAX_SERIES else ""
+    fig.suptitle(f"S21 and delivered power vs {param}{extra}")
+    return _save(fig, path)
+
+
+def plot_peak_sar(summary: pd.DataFrame, path: Path) -> Path | None:
+    """Bars of peak averaged SAR per watt of input power for every finished case."""
+    cols = [c for c in summary.columns if c.startswith("peak_SAR_") and c.endswith("_W_per_kg_per_W")]
+    ok = summary[summary["status"].isin(["ok", "warning"])]
+    if not cols or ok.empty:
+        return None
+    plt = _plt()
+    ok = ok.sort_values(cols[0], ascending=False).head(MAX_BARS)
+    fig, ax = plt.subplots(figsize=(max(6, 0.35 * len(ok) + 2), 4.5))
+    w = 0.8 / len(cols)
+    for k, c in enumerate(cols):
+        mass = c[len("peak_SAR_"):-len("_W_per_kg_per_W")]
+        ax.bar(np.arange(len(ok)) + (k - (len(cols) - 1) / 2) * w, ok[c].to_numpy(float), width=w,
+               label=f"{mass} average")
+    labels = ok["label"].astype(str).where(ok["label"].astype(str) != "", ok["case_id"])
+    ax.set_xticks(range(len(ok)), labels, rotation=70, ha="right", fontsize=7)
+    ax.set_ylabel("peak averaged SAR per input power (W/kg per W)")
+    ax.set_yscale("log")
+    ax.grid(True, axis="y", alpha=0.3)
+    ax.legend()
+    ax.set_title("Peak averaged SAR per watt of input power")
+    return _save(fig, path)
+
+
+def read_sar_volume(result_h5: Path) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray, np.ndarray], str]:
+    """Point SAR per watt and its mesh from a case's ``result.h5``.
+
+    Returns
+    -------
+    sar : ndarray, shape (nx, ny, nz)
+        SAR in W/kg per watt of input power (the un-averaged, local SAR when present).
+    (x, y, z) : ndarrays of shapes (nx,), (ny,), (nz,)
+        Cell-centre coordinates in metres.
+    name : str
+        Which dataset was read.
+    """
+    import h5py
+
+    with h5py.File(result_h5, "r") as h5:
+        names: list[str] = []
+        h5.visit(names.append)
+        cand = [n for n in names if isinstance(h5[n], h5py.Dataset) and h5[n].ndim == 3 and "sar" in n.lower()]
+        if not cand:
+            raise KeyError(f"{result_h5}: no 3-D SAR dataset (found {names[:20]})")
+        # prefer the local (point) SAR, then the smallest averaging mass
+        cand.sort(key=lambda n: (0 if re.search(r"local|point|raw", n, re.I) else 1, n))
+        name = cand[0]
+        sar = h5[name][()]
+        ax = []
+        for a in ("x", "y", "z"):
+            hits = [n for n in names if isinstance(h5[n], h5py.Dataset) and h5[n].ndim == 1
+                    and re.search(rf"(^|/)(mesh/)?{a}(_m)?$", n, re.I)]
+            if not hits:
+                raise KeyError(f"{result_h5}: no mesh coordinate for {a}")
+            ax.append(h5[sorted(hits, key=len)[0]][()])
+    x, y, z = (np.asarray(v, float) for v in ax)
+    # lines (n+1) -> cell centres (n) when the volume is given per cell
+    fix = []
+    for v, n in zip((x, y, z), sar.shape):
+        fix.append(0.5 * (v[1:] + v[:-1]) if v.size == n + 1 else v)
+    if tuple(v.size for v in fix) != sar.shape:
+        raise ValueError(f"{result_h5}: SAR shape {sar.shape} does not match mesh {[v.size for v in fix]}")
+    return sar, (fix[0], fix[1], fix[2]), name
+
+
+def plot_sar_section(result_h5: Path, path: Path, title: str) -> Path:
+    """Two cross-sections (x-z and y-z) through the SAR peak, in dB relative to the peak."""
+    plt = _plt()
+    sar, (x, y, z), name = read_sar_volume(result_h5)
+    sar = np.nan_to_num(np.asarray(sar, float), nan=0.0)
+    i, j, k = np.unravel_index(int(np.argmax(sar)), sar.shape)
+    peak = sar[i, j, k]
+    with np.errstate(divide="ignore"):
+        db = 10.0 * np.log10(np.maximum(sar, peak * 1e-6) / peak) if peak > 0 else np.zeros_like(sar)
+    fig, axes = plt.subplots(1, 2, figsize=(11, 4.5))
+    for ax, sl, hor, hname, fixed in ((axes[0], db[:, j, :], x, "x", f"y = {y[j] * 1e3:.1f} mm"),
+                                      (axes[1], db[i, :, :], y, "y", f"x = {x[i] * 1e3:.1f} mm")):
+        im = ax.pcolormesh(hor * 1e3, z * 1e3, sl.T, shading="nearest", cmap="magma", vmin=-40, vmax=0)
+        ax.plot([hor[i if hname == "x" else j] * 1e3], [z[k] * 1e3], "c+", ms=12, mew=2)
+        ax.axhline(0.0, color="w", lw=0.6, ls="--")
+        ax.set_xlabel(f"{hname} (mm)")
+        ax.set_ylabel("z (mm), body surface at 0")
+        ax.set_title(fixed, fontsize=9)
+        ax.set_aspect("equal")
+    fig.colorbar(im, ax=axes, label="SAR relative to the peak (dB)")
+    fig.suptitle(f"{title}\npeak {peak:.3g} W/kg per W ({name}) at "
+                 f"({x[i] * 1e3:.1f}, {y[j] * 1e3:.1f}, {z[k] * 1e3:.1f}) mm", fontsize=9)
+    return _save(fig, path)
+
+
+def _fmt(v, spec: str = ".3g") -> str:
+    try:
+        if v is None or (isinstance(v, float) and math.isnan(v)):
+            return "-"
+        return format(float(v), spec)
+    except (TypeError, ValueError):
+        return str(v)
+
+
+def write_report(layout: StudyLayout) -> Path:
+    """Plots and ``report.md`` of a study from its tables; returns the path of ``report.md``."""
+    summary = pd.read_parquet(layout.tables_dir / "summary.parquet")
+    plan = read_plan(layout)
+    pkeys: list[str] = list(dict.fromkeys(k for e in plan["cases"] for k in e.get("parameters", {})))
+    pcols = [f"param.{k}" if f"param.{k}" in summary.columns else k for k in pkeys]
+    rdir = layout.report_dir
+    rdir.mkdir(parents=True, exist_ok=True)
+    swept = swept_parameters(summary, pcols)
+    ok = summary[summary["status"].isin(["ok", "warning"])]
+    failed = summary[~summary["status"].isin(["ok", "warning"])]
+    lines = [f"# Study `{plan['study']}`", "",
+             f"> **Safety note.** {SAFETY_NOTE}", "",
+             f"{len(summary)} cases: {len(ok)} finished, {len(failed)} failed or missing. "
+             f"Tables: `../tables/summary.parquet`, `sparams.parquet`, `sar.parquet` (and `.csv`).", ""]
+    figures: list[tuple[str, Path]] = []
+    if not ok.empty:
+        for p in swept:
+            others = [o for o in swept if o != p]
+            figures.append((f"S21 and delivered power vs `{p}`",
+                            plot_vs_parameter(summary, p, others, rdir / f"s21_vs_{_safe(p)}.png")))
+        sar_png = plot_peak_sar(summary, rdir / "peak_sar.png")
+        if sar_png:
+            figures.append(("Peak averaged SAR per watt of input power", sar_png))
+    best = best_case(summary)
+    if best is not None:
+        lines += ["## Best case", "",
+                  f"`{best['case_id']}` ({best['label']}): S21 {_fmt(best['S21_dB'], '.2f')} dB, "
+                  f"allowed input power {_fmt(best.get('allowed_input_dBm'), '.1f')} dBm, delivered implant "
+                  f"power {_fmt(best.get('delivered_dBm'), '.1f')} dBm, matched link efficiency "
+                  f"{_fmt(best.get('matched_link_efficiency_dB'), '.1f')} dB.", ""]
+        h5 = layout.case_dir(str(best["case_id"])) / "result.h5"
+        try:
+            figures.append((f"SAR cross-sections through the peak, case `{best['case_id']}`",
+                            plot_sar_section(h5, rdir / f"sar_section_{best['case_id']}.png",
+                                             f"case {best['case_id']} ({best['label']})")))
+        except (OSError, KeyError, ValueError) as exc:
+            lines += [f"(no SAR cross-section: {exc})", ""]
+    lines += ["## Plots", ""]
+    for caption, png in figures:
+        lines += [f"### {caption}", "", f"![{caption}]({png.name})", ""]
+    cols = ["case_id", "label", "status", "S11_dB", "S21_dB", "allowed_input_dBm", "delivered_dBm"]
+    lines += ["## Cases", "", "| " + " | ".join(cols) + " |", "|" + "---|" * len(cols)]
+    for _, r in summary.iterrows():
+        lines.append("| " + " | ".join(
+            _fmt(r.get(c), ".2f") if c.endswith(("_dB", "_dBm")) else str(r.get(c, "")) for c in cols) + " |")
+    if not failed.empty:
+        lines += ["", "## Failed cases", ""]
+        lines += [f"- `{r['case_id']}` ({r['label']}): {r['status']}: {r['reason']}" for _, r in failed.iterrows()]
+    lines.append("")
+    write_text(layout.report_file, "\n".join(lines))
+    return layout.report_file

@@ -1,0 +1,10 @@
+rule collect:
+    input:
+        expand(f"{CASES}/{{case}}/metrics.json", case=RUN.case_ids),
+        RUN.layout.plan_file,
+    output:
+        RUN.layout.table_files(),
+    log:
+        f"{STUDY}/logs/collect.log",
+    shell:
+        '"{PY}" -m bodysweep.workflow.steps collect "{STUDY}" > "{log}" 2>&1'
