@@ -1,8 +1,25 @@
-"""The ``bodysweep`` command line."""
+"""The ``bodysweep`` command line.
+
+bodysweep check   STUDY        schema and geometry checks, number of cases; writes nothing
+bodysweep plan    STUDY        per case: done / to run / changed / failed, with cost estimates
+bodysweep run     STUDY        prepare case folders and run the pipeline (Snakemake) with progress
+bodysweep collect STUDY        merge case results into tables
+bodysweep preview STUDY CASE   the three-plane preview PNG of one case
+bodysweep report  STUDY        plots and report.md from the tables
+bodysweep verify  STUDY        integrity of case folders and tables
+
+Exit codes: 0 success; 2 the study file (or a case's geometry) is not usable, nothing written;
+3 some cases failed (run) or integrity problems (verify); 4 refused: the estimated cost is over the
+budget (give --accept-cost); 1 anything else (the pipeline itself failed).
+"""
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+from pathlib import Path
+
+EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET = 0, 1, 2, 3, 4
 
 
 def _versions() -> str:
@@ -22,15 +39,370 @@ def _versions() -> str:
     return "\n".join(parts)
 
 
+class StudyUnusable(Exception):
+    """The study file or one of its cases cannot be used (exit 2); one-line message."""
+
+
+def _err(msg: str) -> None:
+    print(f"bodysweep: error: {msg}", file=sys.stderr)
+
+
+def _expand(study_path: str, results_dir: str):
+    """``(study, layout, entries, case_dicts)``; a StudyError or ValueError becomes StudyUnusable."""
+    from .pipeline import expand_study
+    from .study.errors import StudyError
+
+    if not Path(study_path).is_file():
+        raise StudyUnusable(f"{study_path}: no such study file")
+    try:
+        return expand_study(study_path, results_dir)
+    except StudyError as exc:
+        raise StudyUnusable(f"{study_path}: {exc}") from None
+    except ValueError as exc:
+        raise StudyUnusable(f"{study_path}: {' '.join(str(exc).split())}") from None
+
+
+def _build_model(case: dict):
+    from bodysweep.geometry.scene import Scene
+
+    return Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))
+
+
+def _check_geometry(dicts: list[dict]) -> int:
+    """Build every distinct scene once; raise StudyUnusable naming the first case that fails."""
+    import json
+
+    seen: set[str] = set()
+    for d in dicts:
+        key = json.dumps([d["scene"], d["frequency_Hz"]], sort_keys=True, default=str)
+        if key in seen:
+            continue
+        seen.add(key)
+        try:
+            _build_model(d)
+        except (ValueError, KeyError, TypeError) as exc:
+            raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): geometry: {' '.join(str(exc).split())}") from None
+    return len(seen)
+
+
+# -- cost ------------------------------------------------------------------------------------------------
+def case_cost(case: dict) -> dict:
+    """Mesh and cost estimate of one case (no solver run, no openEMS import).
+
+    Returns a dict ``cells, timestep_s, timesteps, memory_B, cpu_s`` (``cpu_s`` for all excited ports).
+    """
+    from .solver import cost, mesh
+    from .solver.settings import settings_from_dict
+
+    model = _build_model(case)
+    settings = settings_from_dict(case.get("solver"))
+    plan = mesh.auto_mesh(model, settings)
+    est = cost.estimate(plan, model, settings)
+    get = (lambda k: est[k]) if isinstance(est, dict) else (lambda k: getattr(est, k))
+
+    def pick(*names, default=float("nan")):
+        for n in names:
+            try:
+                return float(get(n))
+            except (KeyError, AttributeError, TypeError):
+                continue
+        return default
+
+    return {"cells": pick("cells", "n_cells"), "timestep_s": pick("timestep_s", "timestep", "dt_s"),
+            "timesteps": pick("timesteps", "n_timesteps"),
+            "memory_B": pick("memory_B", "memory_bytes", "memory"),
+            "cpu_s": pick("cpu_s", "cpu_seconds", "cpu_time_s")}
+
+
+def _fmt_bytes(b: float) -> str:
+    if b != b:
+        return "-"
+    for unit, f in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if b >= f:
+            return f"{b / f:.1f} {unit}"
+    return f"{b:.0f} B"
+
+
+def _fmt_cpu(s: float) -> str:
+    from .pipeline import format_duration
+
+    return "-" if s != s else format_duration(s)
+
+
+def plan_rows(layout, entries, dicts, previous) -> list[dict]:
+    from .pipeline import case_states
+
+    states = case_states(layout, entries, previous)
+    rows = []
+    for e, d, (state, why) in zip(entries, dicts, states):
+        row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
+        if state != "done":
+            try:
+                row.update(case_cost(d))
+            except Exception as exc:  # a case the mesher refuses shows up as such, not as a crash
+                row.update({"cells": float("nan"), "timesteps": float("nan"), "memory_B": float("nan"),
+                            "cpu_s": float("nan"), "note": f"no estimate: {' '.join(str(exc).split())[:120]}"})
+        rows.append(row)
+    return rows
+
+
+def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float) -> list[str]:
+    todo = [r for r in rows if r["state"] in ("to run", "changed")]
+    cpu = sum(r.get("cpu_s", 0.0) for r in todo if r.get("cpu_s", 0.0) == r.get("cpu_s", 0.0))
+    out = []
+    if cpu > max_cpu_hours * 3600.0:
+        out.append(f"estimated CPU time {cpu / 3600.0:.2f} h for {len(todo)} cases is over the budget of "
+                   f"{max_cpu_hours:g} h (--max-cpu-hours)")
+    big = [r for r in todo if r.get("memory_B", 0.0) == r.get("memory_B", 0.0) and r.get("memory_B", 0.0) > max_memory_GB * 1e9]
+    if big:
+        worst = max(big, key=lambda r: r["memory_B"])
+        out.append(f"{len(big)} cases need more memory than {max_memory_GB:g} GB (--max-memory-GB), the largest "
+                   f"{_fmt_bytes(worst['memory_B'])} ({worst['case_id']}, {worst['cells']:.0f} cells)")
+    return out
+
+
+def _machine_memory_GB() -> float:
+    try:
+        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 1e9
+    except (ValueError, OSError, AttributeError):
+        return 8.0
+
+
+# -- subcommands -----------------------------------------------------------------------------------------
+def cmd_check(a) -> int:
+    study, layout, entries, dicts = _expand(a.study, a.results_dir)
+    n_scenes = _check_geometry(dicts)
+    print(f"study {study.name!r}: {len(entries)} cases ({n_scenes} distinct scenes built without error)")
+    print(f"results would go to {layout.root}")
+    return EXIT_OK
+
+
+def cmd_plan(a) -> int:
+    from .pipeline import previous_plan
+
+    study, layout, entries, dicts = _expand(a.study, a.results_dir)
+    rows = plan_rows(layout, entries, dicts, previous_plan(layout))
+    w = max([len(r["label"]) for r in rows] + [5])
+    print(f"{'case_id':<14} {'label':<{w}} {'state':<8} {'cells':>10} {'timesteps':>10} {'memory':>9} {'CPU time':>10}  note")
+    for r in rows:
+        has = r["state"] != "done"
+        print(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<8} "
+              f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
+              f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
+              f"{(_fmt_bytes(r['memory_B']) if has else '-'):>9} {(_fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
+    counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to run", "changed", "failed")}
+    todo = [r for r in rows if r["state"] in ("to run", "changed")]
+    cpu = sum(r["cpu_s"] for r in todo if r["cpu_s"] == r["cpu_s"])
+    mem = max([r["memory_B"] for r in todo if r["memory_B"] == r["memory_B"]] or [0.0])
+    cells = sum(r["cells"] for r in todo if r["cells"] == r["cells"])
+    print(f"total: {len(rows)} cases: " + ", ".join(f"{n} {s}" for s, n in counts.items())
+          + f"; to run: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}"
+          + f" (failed cases rerun only with `run --retry-failed`)")
+    problems = budget_problems(rows, a.max_cpu_hours, a.max_memory_GB)
+    if problems and not a.accept_cost:
+        for p in problems:
+            _err(f"over budget: {p}")
+        _err("give --accept-cost to run anyway, or raise the budget")
+        return EXIT_BUDGET
+    return EXIT_OK
+
+
+def cmd_run(a) -> int:
+    from .pipeline import (mark_unfinished, prepare, previous_plan, reset_failed, run_snakemake, snakemake_args,
+                           case_states)
+
+    study, layout, entries, dicts = _expand(a.study, a.results_dir)
+    _check_geometry(dicts)
+    if not a.accept_cost:
+        rows = plan_rows(layout, entries, dicts, previous_plan(layout))
+        problems = budget_problems(rows, a.max_cpu_hours, a.max_memory_GB)
+        if problems:
+            for p in problems:
+                _err(f"over budget: {p}")
+            _err("give --accept-cost to run anyway, or raise the budget")
+            return EXIT_BUDGET
+    prep = prepare(a.study, a.results_dir)
+    if a.retry_failed:
+        reset = reset_failed(prep.layout, prep.entries)
+        if reset:
+            print(f"retrying {len(reset)} failed cases")
+    states = case_states(prep.layout, prep.entries)
+    n_failed_before = sum(s == "failed" for s, _ in states)
+    if n_failed_before:
+        print(f"{n_failed_before} cases failed in an earlier run and are kept as failed (--retry-failed reruns them)")
+    from datetime import datetime, timezone
+
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    log = prep.layout.logs_dir / f"snakemake_{stamp}.log"
+    args = snakemake_args(a.study, results_dir=a.results_dir, workdir=".", cores=a.cores, jobs=a.jobs,
+                          threads_per_job=a.threads_per_job, profile=a.profile)
+    rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".")
+    if rc != 0:
+        marked = mark_unfinished(prep.layout, prep.entries)
+        if marked:
+            print(f"{len(marked)} cases ended without a result; recorded as failed. Collecting the rest.")
+            rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".")
+    if rc != 0:
+        _err(f"the pipeline failed (snakemake exit {rc}); see {log}")
+        return EXIT_ERROR
+    states = case_states(prep.layout, prep.entries)
+    failed = [(e, why) for e, (s, why) in zip(prep.entries, states) if s == "failed"]
+    print(f"done: {len(prep.entries) - len(failed)} of {len(prep.entries)} cases have results")
+    print(f"tables: {prep.layout.tables_dir}/ (summary, sparams, sar as .parquet and .csv)")
+    print(f"report: {prep.layout.report_file}")
+    if failed:
+        for e, why in failed[:20]:
+            print(f"  failed {e['case_id']} ({e['label']}): {why}")
+        if len(failed) > 20:
+            print(f"  ... and {len(failed) - 20} more (see the summary table)")
+        return EXIT_FAILED
+    return EXIT_OK
+
+
+def _layout_of(a):
+    from .layout import StudyLayout
+    from .pipeline import load
+    from .study.errors import StudyError
+
+    if not Path(a.study).is_file():
+        raise StudyUnusable(f"{a.study}: no such study file")
+    try:
+        study = load(a.study)
+    except StudyError as exc:
+        raise StudyUnusable(f"{a.study}: {exc}") from None
+    layout = StudyLayout.of(study.name, a.results_dir)
+    if not layout.plan_file.exists():
+        raise StudyUnusable(f"{layout.plan_file} does not exist: run `bodysweep run {a.study}` first")
+    return layout
+
+
+def cmd_collect(a) -> int:
+    from .collect import collect_study
+
+    layout = _layout_of(a)
+    paths = collect_study(layout)
+    print(f"tables written to {layout.tables_dir}/: " + ", ".join(sorted(p.name for p in paths.values())))
+    return EXIT_OK
+
+
+def cmd_report(a) -> int:
+    from .report import write_report
+
+    layout = _layout_of(a)
+    if not (layout.tables_dir / "summary.parquet").exists():
+        raise StudyUnusable(f"no tables in {layout.tables_dir}: run `bodysweep collect {a.study}` first")
+    print(f"report: {write_report(layout)}")
+    return EXIT_OK
+
+
+def cmd_preview(a) -> int:
+    study, layout, entries, dicts = _expand(a.study, a.results_dir)
+    pick = [d for d in dicts if a.case in (d["case_id"], d.get("label"))]
+    if not pick and a.case.isdigit() and int(a.case) < len(dicts):
+        pick = [dicts[int(a.case)]]
+    if not pick:
+        raise StudyUnusable(f"case {a.case!r} is not in study {study.name!r}: give a case id, a label or an "
+                            f"index 0..{len(dicts) - 1} (see `bodysweep plan`)")
+    case = pick[0]
+    out = Path(a.output) if a.output else layout.case_dir(case["case_id"]) / "preview.png"
+    if out.exists() and not a.output:
+        print(out)
+        return EXIT_OK
+    from bodysweep.geometry.preview import preview_png
+
+    from .atomic import atomic_path
+
+    try:
+        model = _build_model(case)
+    except (ValueError, KeyError, TypeError) as exc:
+        raise StudyUnusable(f"case {case['case_id']}: geometry: {' '.join(str(exc).split())}") from None
+    with atomic_path(out) as tmp:
+        preview_png(model, tmp)
+    print(out)
+    return EXIT_OK
+
+
+def cmd_verify(a) -> int:
+    from .verify import verify_study
+
+    layout = _layout_of(a)
+    problems, n = verify_study(layout)
+    for p in problems[:200]:
+        print(f"  {p}")
+    if problems:
+        print(f"verify: {len(problems)} problems in {n} cases of {layout.root}")
+        return EXIT_FAILED
+    print(f"verify: {n} cases and the tables of {layout.root} are consistent")
+    return EXIT_OK
+
+
+# -- parser ----------------------------------------------------------------------------------------------
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(prog="bodysweep", description="Parametric openEMS FDTD studies of radio links "
+                                 "to implanted devices: S-parameters, averaged SAR, SAR-limited link budgets.",
+                                 epilog="Exit codes: 0 ok, 1 pipeline error, 2 unusable study file, "
+                                        "3 failed cases / integrity problems, 4 over the cost budget.")
+    ap.add_argument("--version", action="store_true",
+                    help="print bodysweep, openEMS, CSXCAD, snakemake and numpy versions")
+    sub = ap.add_subparsers(dest="command", metavar="COMMAND")
+
+    def add(name, help_, func):
+        p = sub.add_parser(name, help=help_, description=help_)
+        p.add_argument("study", help="the study file (YAML)")
+        p.add_argument("--results-dir", default="results", help="folder holding results/<study>/ (default: results)")
+        p.set_defaults(func=func)
+        return p
+
+    def budget(p):
+        p.add_argument("--max-cpu-hours", type=float, default=24.0,
+                       help="refuse when the estimated CPU time of the cases to run exceeds this (default 24 h)")
+        p.add_argument("--max-memory-GB", type=float, default=round(0.8 * _machine_memory_GB(), 1),
+                       help="refuse when a case needs more memory than this (default 80%% of this machine's)")
+        p.add_argument("--accept-cost", action="store_true", help="run even when over the budget")
+
+    add("check", "check the study file (schema, geometry of every case) and count its cases; writes nothing",
+        cmd_check)
+    budget(add("plan", "list each case as done / to run / changed / failed with cell count, timesteps, memory "
+                       "and CPU-time estimates, and the total", cmd_plan))
+    p = add("run", "prepare the case folders and run the pipeline (only what is not done yet)", cmd_run)
+    p.add_argument("--cores", type=int, default=None, help="cores Snakemake may use in total (profile default: 2)")
+    p.add_argument("--jobs", type=int, default=None, help="most jobs at a time (default: as many as cores allow)")
+    p.add_argument("--threads-per-job", type=int, default=None,
+                   help="engine threads per solve job (default: 2 on this machine, 1 on one core)")
+    p.add_argument("--profile", default="local",
+                   help="Snakemake profile: a name in workflow/profiles/ (local, ...) or a folder with config.yaml")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--retry-failed", action="store_true", help="rerun cases that failed in an earlier run")
+    g.add_argument("--skip-failed", action="store_true",
+                   help="keep earlier failures as they are (the default; for explicit scripts)")
+    budget(p)
+    add("collect", "merge the case results into tables/summary, sparams, sar (.parquet and .csv)", cmd_collect)
+    p = add("preview", "write (if needed) and print the path of a case's three-plane preview PNG", cmd_preview)
+    p.add_argument("case", help="case id, label, or index in the study's case list")
+    p.add_argument("--output", default=None, help="write the PNG here instead of the case folder")
+    add("report", "write the plots and report.md of a study from its tables", cmd_report)
+    add("verify", "check that every case's files are present, case ids match case.json, tables match the cases",
+        cmd_verify)
+    return ap
+
+
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="bodysweep", description=__doc__)
-    parser.add_argument("--version", action="store_true", help="print bodysweep, openEMS, CSXCAD, snakemake and numpy versions")
+    parser = build_parser()
     args = parser.parse_args(argv)
     if args.version:
         print(_versions())
-        return 0
-    parser.print_help()
-    return 0
+        return EXIT_OK
+    if not getattr(args, "command", None):
+        parser.print_help()
+        return EXIT_OK
+    try:
+        return args.func(args)
+    except StudyUnusable as exc:
+        _err(str(exc))
+        return EXIT_STUDY
+    except KeyboardInterrupt:
+        _err("interrupted")
+        return 130
 
 
 if __name__ == "__main__":
