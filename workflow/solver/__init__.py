@@ -1,1 +1,9 @@
-"""Solver adapter: the only part of bodysweep that imports openEMS (in :mod:`.engine`)."""
+"""Solver adapter: the only part of bodysweep that imports openEMS (in :mod:`.engine`).
+
+Modules: ``engine`` (engine access, log parsing), ``build`` (scene + mesh -> CSXCAD structure),
+``ports`` (own lumped ports and probe reading), ``run`` (one excitation in a child process),
+``case`` (finish a case: S-matrix, SAR, link budget, outputs).
+"""
+
+#: bump when a change here alters results (part of every case identity)
+ADAPTER_VERSION = "1"

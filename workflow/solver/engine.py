@@ -7,6 +7,7 @@ Debian's ``openEMS/ports.py`` helper is never imported (it uses the removed ``np
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 
@@ -30,3 +31,84 @@ def engine_versions() -> dict[str, str]:
     if f.exists():
         return json.loads(f.read_text())
     return {"openEMS": "unknown", "CSXCAD": "unknown"}
+
+
+def boundary_conditions(boundary: str, pml_cells: int) -> list[str]:
+    """openEMS boundary names for all six faces: ``"pml"`` -> ``PML_<n>``, ``"mur"`` -> ``MUR``."""
+    if boundary == "pml":
+        return [f"PML_{int(pml_cells)}"] * 6
+    if boundary == "mur":
+        return ["MUR"] * 6
+    raise ValueError(f"boundary must be 'pml' or 'mur', got {boundary!r}")
+
+
+def new_simulation(f0_Hz: float, fc_Hz: float, end_criterion: float, max_timesteps: int,
+                   boundary: str = "pml", pml_cells: int = 8):
+    """A fresh ``(fdtd, csx)`` pair: Gaussian pulse, stop criterion, absorbing boundary.
+
+    Parameters
+    ----------
+    f0_Hz, fc_Hz : float
+        Centre frequency and -20 dB half-bandwidth of the Gaussian pulse (openEMS convention: the
+        spectrum covers ``f0 - fc ... f0 + fc``); ``fc_Hz < f0_Hz`` keeps DC out.
+    end_criterion : float
+        Energy ratio (linear, e.g. ``1e-5`` for -50 dB) at which the run stops.
+    max_timesteps : int
+        Hard cap on timesteps.
+    """
+    if not (0 < fc_Hz < f0_Hz):
+        raise ValueError(f"excitation: need 0 < fc < f0, got f0={f0_Hz} Hz, fc={fc_Hz} Hz")
+    ContinuousStructure, openEMS = load()
+    fdtd = openEMS(NrTS=int(max_timesteps), EndCriteria=float(end_criterion))
+    fdtd.SetGaussExcite(float(f0_Hz), float(fc_Hz))
+    fdtd.SetBoundaryCond(boundary_conditions(boundary, pml_cells))
+    csx = ContinuousStructure()
+    fdtd.SetCSX(csx)
+    return fdtd, csx
+
+
+def run(fdtd, sim_dir, threads: int = 0, verbose: int = 1) -> None:
+    """Run a set-up simulation in ``sim_dir`` (the engine changes the working directory while running)."""
+    import os
+
+    cwd = os.getcwd()
+    try:
+        fdtd.Run(str(sim_dir), cleanup=False, verbose=int(verbose), numThreads=int(threads))
+    finally:
+        os.chdir(cwd)
+
+
+_RE_DONE = re.compile(r"Time for\s+(\d+)\s+iterations with\s+([0-9.eE+]+)\s+cells\s*:\s*([0-9.eE+]+)\s*sec")
+_RE_SPEED = re.compile(r"Speed:\s*([0-9.eE+]+)\s*MCells/s")
+_RE_ENERGY = re.compile(r"Energy:\s*~?\s*([0-9.eE+-]+)\s*\(\s*-?\s*([0-9.eE+-]+)\s*dB\)")
+_RE_CELLS = re.compile(r"-->\s*(\d+)\s*FDTD cells")
+
+
+def parse_engine_log(text: str) -> dict:
+    """Facts from an openEMS console log (verbose >= 1).
+
+    Returns
+    -------
+    dict
+        ``timesteps`` (int or None), ``cells`` (int or None), ``engine_runtime_s``, ``speed_MC_per_s``,
+        ``max_timesteps_reached`` (the engine's warning was printed), ``last_energy_dB`` (last energy
+        figure of the progress lines, negative, or None), ``finished`` (the closing summary was printed).
+    """
+    out: dict = {"timesteps": None, "cells": None, "engine_runtime_s": None, "speed_MC_per_s": None,
+                 "max_timesteps_reached": False, "last_energy_dB": None, "finished": False}
+    m = _RE_CELLS.search(text)
+    if m:
+        out["cells"] = int(m.group(1))
+    m = _RE_DONE.search(text)
+    if m:
+        out["timesteps"] = int(m.group(1))
+        out["engine_runtime_s"] = float(m.group(3))
+        out["finished"] = True
+    m = _RE_SPEED.findall(text)
+    if m:
+        out["speed_MC_per_s"] = float(m[-1])
+    energies = _RE_ENERGY.findall(text)
+    if energies:
+        out["last_energy_dB"] = -abs(float(energies[-1][1]))
+    out["max_timesteps_reached"] = "Max. number of timesteps was reached" in text
+    return out
