@@ -1,0 +1,233 @@
+"""Expansion of a study into cases, each fully resolved in SI and identified by a short hash."""
+from __future__ import annotations
+
+import copy
+import importlib
+import itertools
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+from bodysweep.geometry.units import from_edge_units
+
+from .edge_checks import check_edge_values
+from .errors import StudyError, join_path
+from .expressions import evaluate
+from .identity import code_versions, content2case_id
+from .paths import get_path, has_path, parent_exists, path2parts, set_path
+from .study import Study
+
+
+@dataclass(frozen=True)
+class Case:
+    """One case: one frequency and one set of parameter values, fully resolved.
+
+    Attributes
+    ----------
+    case_id : str
+        12 hex characters: sha256 of the canonical resolved content (scene, frequency, solver, SAR,
+        excited ports, code versions); independent of the study name and label.
+    label : str
+        Human readable, e.g. ``"f=403MHz depth=10mm ext=loop"``.
+    study : str
+        Name of the study the case was expanded from (not part of the identity).
+    parameters : dict
+        Dotted path -> value in edge units for everything that varies (option names for choices),
+        plus ``"frequency_MHz"``.
+    frequency_Hz : float
+    scene : dict
+        SI scene spec dict (for ``bodysweep.geometry.scene.Scene.from_dict``).
+    solver : dict
+        SI solver settings dict (for ``bodysweep.workflow.solver.settings.settings_from_dict``).
+    sar : dict
+        ``masses_kg``, ``limits`` (``mass_kg``, ``limit_W_per_kg``, ``source``), ``max_air_fraction``.
+    excite_ports : tuple of int
+    versions : dict
+        ``builder``, ``adapter``, ``post``.
+    """
+
+    case_id: str
+    label: str
+    study: str
+    parameters: dict = field(repr=False)
+    frequency_Hz: float = 0.0
+    scene: dict = field(default_factory=dict, repr=False)
+    solver: dict = field(default_factory=dict, repr=False)
+    sar: dict = field(default_factory=dict, repr=False)
+    excite_ports: tuple[int, ...] = (1,)
+    versions: dict = field(default_factory=dict, repr=False)
+
+    def identity_content(self) -> dict:
+        """The content the case id is the hash of."""
+        return identity_content(self.scene, self.frequency_Hz, self.solver, self.sar, self.excite_ports,
+                                self.versions)
+
+    def to_dict(self) -> dict:
+        """The ``case.json`` content (plain JSON-ready data, a fresh copy)."""
+        return copy.deepcopy({
+            "case_id": self.case_id, "label": self.label, "study": self.study, "parameters": self.parameters,
+            "frequency_Hz": self.frequency_Hz, "scene": self.scene, "solver": self.solver, "sar": self.sar,
+            "excite_ports": list(self.excite_ports), "versions": self.versions,
+        })
+
+
+def identity_content(scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite_ports, versions: dict) -> dict:
+    """The mapping whose canonical JSON hash is the case id."""
+    return {"scene": scene, "frequency_Hz": frequency_Hz, "solver": solver, "sar": sar,
+            "excite_ports": list(excite_ports), "versions": versions}
+
+
+def sar2si(sar: dict) -> dict:
+    """The study's ``sar`` section in SI: ``masses_kg``, ``limits`` with ``mass_kg``, ``max_air_fraction``."""
+    return {
+        "masses_kg": [float(m) * 1e-3 for m in sar["masses_g"]],
+        "limits": [{"mass_kg": float(lim["mass_g"]) * 1e-3, "limit_W_per_kg": float(lim["limit_W_per_kg"]),
+                    "source": lim["source"]} for lim in sar["limits"]],
+        "max_air_fraction": float(sar["max_air_fraction"]),
+    }
+
+
+def _optional(module: str, attr: str) -> Callable | None:
+    try:
+        obj = importlib.import_module(module)
+    except ImportError:
+        return None
+    for part in attr.split("."):
+        obj = getattr(obj, part, None)
+        if obj is None:
+            return None
+    return obj  # type: ignore[return-value]
+
+
+def _resolver(module: str, attr: str) -> Callable[[dict], dict] | None:
+    """``d -> from_dict(d).to_dict()`` (or ``d -> d`` checked only) when the builder exists."""
+    build = _optional(module, attr)
+    if build is None:
+        return None
+
+    def resolve(d: dict) -> dict:
+        obj = build(copy.deepcopy(d))
+        to_dict = getattr(obj, "to_dict", None)
+        return to_dict() if callable(to_dict) else d
+
+    return resolve
+
+
+def _format(value: Any) -> str:
+    if isinstance(value, float):
+        return format(value, ".10g")
+    return str(value)
+
+
+def case_label(frequency_MHz: float, items: list[tuple[str, Any, str]]) -> str:
+    """``"f=403MHz depth=10mm ext=loop"`` from the frequency and ``(name, value, unit)`` items."""
+    return " ".join([f"f={_format(float(frequency_MHz))}MHz"] + [f"{n}={_format(v)}{u}" for n, v, u in items])
+
+
+def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz: float, label: str):
+    """Edge-unit scene/solver of one case and its parameter dict (choices, then scalars, then derived)."""
+    doc = {"scene": copy.deepcopy(study.raw["scene"]), "solver": copy.deepcopy(study.raw["solver"])}
+    values = dict(zip(names, row))
+    params = study.parameters
+    parameters: dict[str, Any] = {"frequency_MHz": freq_MHz}
+    choices = sorted((n for n in names if params[n].is_choice), key=lambda n: len(path2parts(params[n].path)))
+    for n in choices:
+        p = params[n]
+        if not parent_exists(doc, p.path):
+            raise StudyError(join_path("sweep.parameters", n, "path"), f"in case {label}: the parent of {p.path!r} "
+                             "does not exist", p.path, "a path whose parent exists in every case")
+        set_path(doc, p.path, copy.deepcopy(p.options[values[n]]))
+    for n in names:
+        p = params[n]
+        if p.is_choice:
+            parameters[p.path] = values[n]
+            continue
+        if not has_path(doc, p.path):
+            raise StudyError(join_path("sweep.parameters", n), f"in case {label}: path {p.path!r} does not exist "
+                             "(the chosen options do not have it)", p.path, "a path present in every case")
+        set_path(doc, p.path, values[n])
+        parameters[p.path] = values[n]
+    env: dict[str, Any] = {"frequency_MHz": freq_MHz}
+    for n, p in params.items():
+        if not p.is_choice:
+            env[n] = get_path(doc, p.path, None)
+    for d in study.derived:
+        where = join_path("derived", d.name)
+        for n in d.names:
+            if n in params and env.get(n) is None:
+                raise StudyError(join_path(where, "expr"), f"in case {label}: parameter {n!r} has no value "
+                                 f"(path {params[n].path!r} missing)", d.expr, "parameters with a numeric value")
+        try:
+            value = evaluate(d.tree, env, d.expr, join_path(where, "expr"))
+        except StudyError as exc:
+            raise StudyError(exc.key_path, f"in case {label}: {exc.problem}", exc.value, exc.allowed) from None
+        if not has_path(doc, d.path):
+            raise StudyError(join_path(where, "path"), f"in case {label}: path {d.path!r} does not exist",
+                             d.path, "a path present in every case")
+        value = float(f"{float(value):.12g}")  # drop float noise such as 30.299999999999997
+        set_path(doc, d.path, value)
+        parameters[d.path] = value
+        env[d.name] = value
+    return doc, parameters
+
+
+def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
+    """All cases of a study, in a fixed order: frequencies outermost, then the product of the blocks.
+
+    Within the product the first block varies slowest; within a block the rows keep their order.
+    Each case's scene is checked with ``bodysweep.geometry.scene.Scene.from_dict`` and its solver
+    section with ``settings_from_dict`` when those exist (``check_scene=False`` skips the scene builder),
+    so geometry errors surface here with the case label. Cases that resolve to the same content
+    (same id) are kept once, at their first position.
+
+    Raises
+    ------
+    StudyError
+        A path missing in some case, an expression failing for some case, a value out of range in
+        some case, or the scene / solver builders refusing a case (key path ``scene`` / ``solver``).
+    """
+    scene_resolve = _resolver("bodysweep.geometry.scene", "Scene.from_dict") if check_scene else None
+    solver_resolve = _resolver("bodysweep.workflow.solver.settings", "settings_from_dict")
+    versions = code_versions()
+    sar = sar2si(study.raw["sar"])
+    excite = tuple(study.excite_ports)
+    names = tuple(n for b in study.blocks for n in b.names)
+    combos = itertools.product(*(b.rows for b in study.blocks)) if study.blocks else [()]
+    combos = [tuple(v for row in combo for v in row) for combo in combos]
+    cases: list[Case] = []
+    seen: set[str] = set()
+    for f_Hz in study.frequencies_Hz:
+        f_MHz = f_Hz / 1e6
+        for row in combos:
+            items = [(n, v, study.parameters[n].unit) for n, v in zip(names, row)]
+            label = case_label(f_MHz, items)
+            doc, parameters = _apply(study, names, row, f_MHz, label)
+            check_edge_values(doc, "", f"in case {label}")
+            scene_si = from_edge_units(doc["scene"])
+            solver_si = from_edge_units(doc["solver"])
+            solver_si["excite_ports"] = list(excite)
+            if scene_resolve is not None:
+                try:
+                    scene_si = scene_resolve(scene_si)
+                except (ValueError, TypeError, KeyError) as exc:
+                    raise StudyError("scene", f"in case {label}: {exc}", None, "a scene the builders accept",
+                                     show_value=False) from None
+            if solver_resolve is not None:
+                try:
+                    solver_si = solver_resolve(solver_si)
+                except (ValueError, TypeError, KeyError) as exc:
+                    raise StudyError("solver", f"in case {label}: {exc}", None, "settings the solver accepts",
+                                     show_value=False) from None
+            content = identity_content(scene_si, f_Hz, solver_si, sar, excite, versions)
+            case_id = content2case_id(content)
+            if case_id in seen:
+                continue
+            seen.add(case_id)
+            cases.append(Case(case_id=case_id, label=label, study=study.name, parameters=parameters,
+                              frequency_Hz=f_Hz, scene=scene_si, solver=solver_si, sar=copy.deepcopy(sar),
+                              excite_ports=excite, versions=dict(versions)))
+    return cases
+
+
+def count_cases(study: Study) -> int:
+    """Number of rows before removal of identical cases (frequencies x product of block sizes)."""
+    return study.n_cases

@@ -1,0 +1,69 @@
+"""Case identity: a short hash of the canonical JSON of a fully resolved case plus the code versions.
+
+Canonical JSON: keys sorted, no whitespace, every number written as a float through ``repr``
+(so ``10``, ``10.0`` and ``1e1`` are the same), ``-0.0`` written as ``0.0``, tuples as lists,
+non-finite numbers refused. The study name and the label are *not* part of the identity: the same
+case in two studies has the same id.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from typing import Any
+
+#: hex characters kept of the sha256 digest
+CASE_ID_LENGTH = 12
+
+
+def _normalise(obj: Any, where: str = "") -> Any:
+    if isinstance(obj, bool) or obj is None or isinstance(obj, str):
+        return obj
+    if isinstance(obj, (int, float)):
+        x = float(obj)
+        if not math.isfinite(x):
+            raise ValueError(f"{where or 'value'}: non-finite number {obj!r} cannot be part of a case identity")
+        return 0.0 if x == 0.0 else x
+    if hasattr(obj, "item") and callable(obj.item) and getattr(obj, "shape", None) == ():  # numpy scalar
+        return _normalise(obj.item(), where)
+    if isinstance(obj, dict):
+        out = {}
+        for k, v in obj.items():
+            if not isinstance(k, str):
+                raise ValueError(f"{where or 'mapping'}: key {k!r} is not a string")
+            out[k] = _normalise(v, f"{where}.{k}" if where else k)
+        return out
+    if isinstance(obj, (list, tuple)):
+        return [_normalise(v, f"{where}.{i}" if where else str(i)) for i, v in enumerate(obj)]
+    raise TypeError(f"{where or 'value'}: {type(obj).__name__} cannot be part of a case identity")
+
+
+def canonical_json(obj: Any) -> str:
+    """Canonical JSON text of plain data (see module docstring).
+
+    Examples
+    --------
+    >>> canonical_json({"b": 10, "a": [1e1, -0.0]})
+    '{"a":[10.0,0.0],"b":10.0}'
+    """
+    return json.dumps(_normalise(obj), sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+
+
+def content2case_id(content: dict) -> str:
+    """First :data:`CASE_ID_LENGTH` hex characters of the sha256 of :func:`canonical_json` of ``content``."""
+    return hashlib.sha256(canonical_json(content).encode("utf-8")).hexdigest()[:CASE_ID_LENGTH]
+
+
+def code_versions() -> dict[str, str]:
+    """Versions of the code parts whose change alters results: builder, adapter, post ("1" if undefined)."""
+    import importlib
+
+    out = {}
+    for key, module, name in (("builder", "bodysweep.geometry", "BUILDER_VERSION"),
+                              ("adapter", "bodysweep.workflow.solver", "ADAPTER_VERSION"),
+                              ("post", "bodysweep.workflow.post", "POST_VERSION")):
+        try:
+            out[key] = str(getattr(importlib.import_module(module), name, "1"))
+        except ImportError:
+            out[key] = "1"
+    return out

@@ -1,0 +1,163 @@
+"""The study file's JSON Schema (draft 2020-12) and its errors as one-line :class:`StudyError`.
+
+``workflow/schema/study.schema.json`` references ``scene.schema.json`` (shipped by
+:mod:`bodysweep.geometry` in ``geometry/data/``) and ``solver.schema.json`` (``workflow/schema/``).
+Missing referenced schemas are replaced by ``{"type": "object"}`` so that the study layer works while
+the other sections are still being written.
+"""
+from __future__ import annotations
+
+import functools
+import json
+from importlib import resources
+from typing import Any
+
+import jsonschema
+import referencing
+from jsonschema.exceptions import ValidationError, best_match
+from referencing.jsonschema import DRAFT202012
+
+from .errors import StudyError, join_path, value2text
+
+STUDY_SCHEMA_URI = "bodysweep/study.schema.json"
+SCENE_SCHEMA_URI = "bodysweep/scene.schema.json"
+SOLVER_SCHEMA_URI = "bodysweep/solver.schema.json"
+_ANY_OBJECT = {"$schema": "https://json-schema.org/draft/2020-12/schema", "type": "object"}
+
+
+def _read_json(package: str, *parts: str) -> dict | None:
+    try:
+        node = resources.files(package)
+        for p in parts:
+            node = node / p
+        if not node.is_file():
+            return None
+        return json.loads(node.read_text(encoding="utf-8"))
+    except (ModuleNotFoundError, FileNotFoundError):
+        return None
+
+
+def study_schema() -> dict:
+    """The study schema as a dict (a fresh copy)."""
+    schema = _read_json("bodysweep.workflow", "schema", "study.schema.json")
+    if schema is None:  # pragma: no cover - shipped with the package
+        raise RuntimeError("workflow/schema/study.schema.json is missing from the installation")
+    return schema
+
+
+def _resources() -> list[tuple[str, referencing.Resource]]:
+    out = []
+    for uri, package, parts in ((SCENE_SCHEMA_URI, "bodysweep.geometry", ("data", "scene.schema.json")),
+                                (SOLVER_SCHEMA_URI, "bodysweep.workflow", ("schema", "solver.schema.json"))):
+        contents = _read_json(package, *parts) or dict(_ANY_OBJECT)
+        res = referencing.Resource.from_contents(contents, default_specification=DRAFT202012)
+        out.append((uri, res))
+        own = res.id()
+        if own and own != uri:  # the referenced schema's own $id, for its internal references
+            out.append((own, res))
+    return out
+
+
+@functools.lru_cache(maxsize=1)
+def study_validator() -> jsonschema.Draft202012Validator:
+    """A cached validator for the study schema with its referenced schemas registered."""
+    schema = study_schema()
+    jsonschema.Draft202012Validator.check_schema(schema)
+    registry = referencing.Registry().with_resources(_resources())
+    registry = registry.with_resource(STUDY_SCHEMA_URI, DRAFT202012.create_resource(schema))
+    return jsonschema.Draft202012Validator(schema, registry=registry)
+
+
+def _allowed(err: ValidationError) -> str:
+    v, val = err.validator, err.validator_value
+    sch = err.schema if isinstance(err.schema, dict) else {}
+    if v == "type":
+        return " or ".join(val) if isinstance(val, list) else str(val)
+    if v == "enum":
+        return "one of " + ", ".join(json.dumps(x) for x in val)
+    if v == "const":
+        return json.dumps(val)
+    if v in ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum"):
+        lo = sch.get("minimum", sch.get("exclusiveMinimum"))
+        hi = sch.get("maximum", sch.get("exclusiveMaximum"))
+        lo_op = ">=" if "minimum" in sch else ">"
+        hi_op = "<=" if "maximum" in sch else "<"
+        parts = ([f"{lo_op} {lo}"] if lo is not None else []) + ([f"{hi_op} {hi}"] if hi is not None else [])
+        return "a number " + " and ".join(parts)
+    if v == "pattern":
+        return f"text matching {val}"
+    if v in ("minItems", "maxItems"):
+        return f"{'at least' if v == 'minItems' else 'at most'} {val} item(s)"
+    if v in ("minProperties", "maxProperties"):
+        return f"{'at least' if v == 'minProperties' else 'at most'} {val} key(s)"
+    if v in ("minLength", "maxLength"):
+        return f"{'at least' if v == 'minLength' else 'at most'} {val} character(s)"
+    if v == "uniqueItems":
+        return "each item once"
+    if v in ("additionalProperties", "required", "unevaluatedProperties"):
+        props = sorted(sch.get("properties", {}))
+        return ", ".join(props) if props else "see the schema"
+    return f"see the schema ({v})"
+
+
+def _unknown_keys(err: ValidationError) -> list[str]:
+    props = set((err.schema or {}).get("properties", {})) if isinstance(err.schema, dict) else set()
+    if isinstance(err.instance, dict):
+        return sorted(str(k) for k in err.instance if k not in props)
+    return []
+
+
+def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
+    """Turn one schema error into a one-line :class:`StudyError` naming the key path."""
+    path = join_path(prefix, *err.absolute_path)
+    v = err.validator
+    if v == "required":
+        missing = [k for k in err.validator_value if not isinstance(err.instance, dict) or k not in err.instance]
+        name = missing[0] if missing else "?"
+        return StudyError(join_path(path, name), "required key is missing", None,
+                          "required keys: " + ", ".join(err.validator_value), show_value=False)
+    if v in ("additionalProperties", "unevaluatedProperties") and err.validator_value is False:
+        unknown = _unknown_keys(err)
+        name = unknown[0] if unknown else "?"
+        return StudyError(join_path(path, name), "unknown key", name, _allowed(err))
+    if v == "propertyNames":
+        bad = err.instance
+        return StudyError(path, f"bad name {value2text(bad)}", bad, "names of letters, digits and _ (not starting with a digit)")
+    if v == "maxProperties" and err.validator_value == 1 and isinstance(err.instance, dict):
+        return StudyError(path, "give exactly one of the keys", sorted(err.instance), _allowed(err))
+    if v == "minProperties" and isinstance(err.instance, dict) and not err.instance:
+        return StudyError(path, "must not be empty", err.instance, _allowed(err))
+    if v == "minItems" and isinstance(err.instance, list) and not err.instance:
+        return StudyError(path, "must not be empty", err.instance, _allowed(err))
+    problem = {
+        "type": "wrong type",
+        "enum": "not an allowed value",
+        "pattern": "bad format",
+        "minimum": "too small", "exclusiveMinimum": "too small",
+        "maximum": "too large", "exclusiveMaximum": "too large",
+        "uniqueItems": "repeated items",
+        "maxItems": "too many items", "minItems": "too few items",
+        "minLength": "too short", "maxLength": "too long",
+    }.get(v, err.message.split("\n")[0])
+    return StudyError(path or "(root)", problem, err.instance, _allowed(err))
+
+
+def _relevance(err: ValidationError):
+    # deepest error first; among equals, the first in document order
+    return (-len(err.absolute_path),)
+
+
+def validate_study_data(data: Any) -> None:
+    """Validate plain study data against the schema.
+
+    Raises
+    ------
+    StudyError
+        For the most specific schema error (the deepest key path; ties broken in document order).
+    """
+    validator = study_validator()
+    errors = list(validator.iter_errors(data))
+    if not errors:
+        return
+    err = best_match(errors)
+    raise error2study_error(err)
