@@ -1,0 +1,225 @@
+"""Batch-scheduler requests for one case: memory, time limit and threads from the case's cost estimate.
+
+A solve job on a cluster must ask for enough memory and time, or the scheduler kills it; asking for far
+more makes it wait longer in the queue. The request is derived from the case's cost estimate (cells,
+engine memory in bytes, single-thread CPU seconds) with margins, and grows on each retry, so a job that
+hit its limit is resubmitted larger.
+
+The Snakemake rule that solves a case uses it as::
+
+    from bodysweep.workflow.cluster import resources_for_case, threads_for_case
+    rule solve:
+        threads: lambda wc: threads_for_case(case_dir(wc))
+        resources:
+            mem_mb=lambda wc, attempt: resources_for_case(case_dir(wc), attempt=attempt)["mem_mb"],
+            runtime=lambda wc, attempt: resources_for_case(case_dir(wc), attempt=attempt)["runtime"],
+
+Resource names follow Snakemake's standard resources: ``mem_mb`` (megabytes; SLURM reads ``--mem``
+in MiB, so bytes are converted with 2**20), ``runtime`` (minutes, SLURM ``--time``), and the job's
+``threads`` (SLURM ``--cpus-per-task``). Partition and account are site settings: they come from the
+cluster profile's ``default-resources`` or from ``bodysweep run --partition/--account``.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import Any, Mapping
+
+MIB = 2**20
+"""Bytes per MiB; SLURM's memory unit "M" is 1024-based (sbatch man page, --mem)."""
+
+
+@dataclass(frozen=True)
+class CaseCost:
+    """What one excitation of a case costs on one thread.
+
+    Parameters
+    ----------
+    cells : int
+        FDTD cells of the mesh (>= 1).
+    memory_bytes : float
+        Peak memory of the engine process for this case, bytes (> 0).
+    cpu_seconds : float
+        Single-thread CPU time of one excitation, seconds (> 0).
+    """
+
+    cells: int
+    memory_bytes: float
+    cpu_seconds: float
+
+    def __post_init__(self):
+        if not isinstance(self.cells, int) or isinstance(self.cells, bool) or self.cells < 1:
+            raise ValueError(f"case cost: cells must be a positive integer, got {self.cells!r}")
+        for name in ("memory_bytes", "cpu_seconds"):
+            v = getattr(self, name)
+            if not isinstance(v, (int, float)) or isinstance(v, bool) or not math.isfinite(v) or v <= 0:
+                raise ValueError(f"case cost: {name} must be a positive finite number, got {v!r}")
+
+    @classmethod
+    def from_any(cls, estimate: Any) -> "CaseCost":
+        """Read ``cells``, ``memory_bytes``, ``cpu_seconds`` from a mapping or an object with those attributes."""
+        if isinstance(estimate, CaseCost):
+            return estimate
+        get = estimate.get if isinstance(estimate, Mapping) else (lambda k: getattr(estimate, k, None))
+        missing = [k for k in ("cells", "memory_bytes", "cpu_seconds") if get(k) is None]
+        if missing:
+            raise ValueError(f"case cost: the estimate lacks {', '.join(missing)}; it needs cells, memory_bytes, cpu_seconds")
+        return cls(cells=int(get("cells")), memory_bytes=float(get("memory_bytes")), cpu_seconds=float(get("cpu_seconds")))
+
+
+@dataclass(frozen=True)
+class JobSizing:
+    """How a cost estimate becomes a scheduler request.
+
+    Parameters
+    ----------
+    memory_factor : float
+        Engine memory is multiplied by this (the estimate's own error plus field dumps). 1 ... 10.
+    memory_base_mb : int
+        Added to every request: the job's own Snakemake process and the Python interpreter with
+        numpy/h5py/openEMS loaded (measured together about 350 MB). 0 ... 100 000.
+    runtime_factor : float
+        Wall time estimate is multiplied by this (slower nodes, shared memory bandwidth). 1 ... 20.
+    runtime_base_s : float
+        Added to every wall time: job start, imports, mesh set-up, writing results. 0 ... 36 000.
+    parallel_efficiency : float
+        Speed-up per thread assumed when a case runs on several threads (FDTD updates are memory-bound,
+        so doubling threads does not halve the time). 0.1 ... 1.
+    max_threads : int
+        Upper bound on threads per job. 1 ... 256.
+    retry_growth : float
+        Memory and time are multiplied by ``retry_growth ** (attempt - 1)`` on each resubmission. 1 ... 4.
+    min_runtime_min : int
+        Smallest time limit requested, minutes (SLURM counts time limits in whole minutes). 1 ... 10 000.
+    """
+
+    memory_factor: float = 1.5
+    memory_base_mb: int = 512
+    runtime_factor: float = 2.0
+    runtime_base_s: float = 60.0
+    parallel_efficiency: float = 0.7
+    max_threads: int = 8
+    retry_growth: float = 1.5
+    min_runtime_min: int = 2
+
+    def __post_init__(self):
+        limits = {
+            "memory_factor": (1.0, 10.0),
+            "memory_base_mb": (0, 100_000),
+            "runtime_factor": (1.0, 20.0),
+            "runtime_base_s": (0.0, 36_000.0),
+            "parallel_efficiency": (0.1, 1.0),
+            "max_threads": (1, 256),
+            "retry_growth": (1.0, 4.0),
+            "min_runtime_min": (1, 10_000),
+        }
+        for name, (lo, hi) in limits.items():
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not (lo <= v <= hi):
+                raise ValueError(f"job sizing: {name} = {v!r} is outside the allowed range {lo} ... {hi}")
+        for name in ("memory_base_mb", "max_threads", "min_runtime_min"):
+            if not isinstance(getattr(self, name), int):
+                raise ValueError(f"job sizing: {name} must be an integer, got {getattr(self, name)!r}")
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+DEFAULT_SIZING = JobSizing()
+
+
+def cells2threads(cells: int, max_threads: int = 8, requested: int = 0) -> int:
+    """Threads for an FDTD case of ``cells`` cells.
+
+    Small meshes gain nothing from more threads (thread start-up and synchronisation per timestep
+    outweigh the work), so the count grows with the mesh: 1 below 200 000 cells, 2 below 1 million,
+    4 below 5 million, else 8 -- our own rule of thumb, capped by ``max_threads``. A positive
+    ``requested`` (the study's solver ``threads``) wins, still capped.
+    """
+    if requested and requested > 0:
+        return max(1, min(int(requested), max_threads))
+    if cells < 200_000:
+        n = 1
+    elif cells < 1_000_000:
+        n = 2
+    elif cells < 5_000_000:
+        n = 4
+    else:
+        n = 8
+    return max(1, min(n, max_threads))
+
+
+def cost2resources(cost: CaseCost, threads: int, attempt: int = 1, sizing: JobSizing = DEFAULT_SIZING) -> dict:
+    """Scheduler request for one solve job.
+
+    Parameters
+    ----------
+    cost : CaseCost
+        Single-thread cost of one excitation.
+    threads : int
+        Threads the job runs on (>= 1).
+    attempt : int
+        1 for the first submission, 2 for the first retry, ...
+    sizing : JobSizing
+        Margins.
+
+    Returns
+    -------
+    dict
+        ``mem_mb`` (int, MiB, what SLURM ``--mem`` receives), ``runtime`` (int, minutes, SLURM
+        ``--time``), ``threads`` (int).
+    """
+    if threads < 1:
+        raise ValueError(f"job resources: threads must be >= 1, got {threads}")
+    if attempt < 1:
+        raise ValueError(f"job resources: attempt counts from 1, got {attempt}")
+    grow = sizing.retry_growth ** (attempt - 1)
+    mem_mb = math.ceil((cost.memory_bytes * sizing.memory_factor / MIB + sizing.memory_base_mb) * grow)
+    speedup = 1.0 + (threads - 1) * sizing.parallel_efficiency
+    wall_s = cost.cpu_seconds / speedup * sizing.runtime_factor + sizing.runtime_base_s
+    runtime_min = max(sizing.min_runtime_min, math.ceil(wall_s * grow / 60.0))
+    return {"mem_mb": int(mem_mb), "runtime": int(runtime_min), "threads": int(threads)}
+
+
+def _case_cost_from_folder(case_dir: Path) -> tuple[CaseCost, int]:
+    """The cost estimate of a case folder and the study's requested threads (0 = choose)."""
+    case_file = case_dir / "case.json"
+    try:
+        case = json.loads(case_file.read_text())
+    except FileNotFoundError:
+        raise FileNotFoundError(f"{case_file} does not exist; the case must be prepared before it is sized") from None
+    requested = int((case.get("solver") or {}).get("threads", 0) or 0)
+    from .solver.cost import estimate_case_cost  # the mesh developer's estimate (no openEMS import)
+
+    return CaseCost.from_any(estimate_case_cost(case)), requested
+
+
+def resources_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, attempt: int = 1,
+                       sizing: JobSizing = DEFAULT_SIZING) -> dict:
+    """Scheduler request (``mem_mb``, ``runtime``, ``threads``) for solving one case.
+
+    Parameters
+    ----------
+    source : path, mapping or estimate
+        A case folder (its ``case.json`` is costed with :func:`bodysweep.workflow.solver.cost.estimate_case_cost`),
+        or an estimate with ``cells``, ``memory_bytes``, ``cpu_seconds``.
+    attempt : int
+        Snakemake's attempt counter (1 on the first submission); each retry asks for more.
+    sizing : JobSizing
+        Margins; the defaults suit openEMS on a typical cluster node.
+    """
+    requested = 0
+    if isinstance(source, (str, os.PathLike)):
+        cost, requested = _case_cost_from_folder(Path(source))
+    else:
+        cost = CaseCost.from_any(source)
+    threads = cells2threads(cost.cells, sizing.max_threads, requested)
+    return cost2resources(cost, threads, attempt, sizing)
+
+
+def threads_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, sizing: JobSizing = DEFAULT_SIZING) -> int:
+    """Threads for solving one case (see :func:`resources_for_case`)."""
+    return resources_for_case(source, 1, sizing)["threads"]
