@@ -24,7 +24,8 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
     Returns
     -------
     dict
-        Edge-unit scene section. A passive rod pair is anchored to the implant, so it moves with it
+        Edge-unit scene section. A passive rod pair beside the capsule (parallel to its axis) is
+        anchored to the implant, so it moves with it
         when ``depth_mm`` is swept.
     """
     return copy.deepcopy({
@@ -67,7 +68,7 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
                         "eps_r": 2.9, "loss_tangent": 0.005},
         },
         "concentrators": [
-            {"type": "rod_pair", "anchor": "implant", "offset_mm": [0.0, 0.0, 4.5], "azimuth_deg": 0.0,
+            {"type": "rod_pair", "anchor": "implant", "offset_mm": [6.0, 0.0, 0.0], "azimuth_deg": 90.0,
              "rod_length_mm": 8.0, "gap_mm": 2.0, "radius_mm": 0.4, "conductor": "pec"},
         ],
         "materials": [
