@@ -143,13 +143,21 @@ def read_metrics(case_dir: Path) -> dict:
         return {"status": "failed", "reason": f"metrics.json unreadable: {exc}"}
 
 
-def _param_columns(entries: list[dict], taken: Iterable[str]) -> dict[str, str]:
-    """Map each swept parameter (dotted path) to its column name; a clash with a fixed column gets ``param.``."""
+#: the case frequency is a parameter of every case; in the summary it is the ``frequency_MHz`` column
+#: itself, in the long S-parameter table (where ``frequency_MHz`` is the band frequency) this column
+CASE_FREQUENCY = "case_frequency_MHz"
+
+
+def parameter_columns(entries: list[dict], taken: Iterable[str]) -> dict[str, str]:
+    """Map each parameter (dotted path) to its column name; a clash with a fixed column gets ``param.``.
+
+    The case frequency (``frequency_MHz``) is left out: every table has it under a fixed name.
+    """
     taken = set(taken)
     names: dict[str, str] = {}
     for e in entries:
         for k in e.get("parameters", {}):
-            if k not in names:
+            if k not in names and k != "frequency_MHz":
                 names[k] = f"param.{k}" if k in taken else k
     return names
 
@@ -182,7 +190,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     """
     if entries is None:
         entries = read_plan(layout)["cases"]
-    pcols = _param_columns(entries, set(SUMMARY_FIXED) | set(SUMMARY_TAIL) | set(SPARAMS_FIXED))
+    pcols = parameter_columns(entries, set(SUMMARY_FIXED) | set(SUMMARY_TAIL) | set(SPARAMS_FIXED) | {CASE_FREQUENCY})
     summary_rows: list[dict] = []
     sar_rows: list[dict] = []
     sp_blocks: list[dict[str, np.ndarray]] = []
@@ -192,7 +200,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         cid = e["case_id"]
         cdir = layout.case_dir(cid)
         m = read_metrics(cdir)
-        params = {pcols[k]: _param_value(v) for k, v in e.get("parameters", {}).items()}
+        params = {pcols[k]: _param_value(v) for k, v in e.get("parameters", {}).items() if k in pcols}
         f_Hz = _num(m.get("frequency_Hz", e.get("frequency_Hz")))
         row: dict[str, Any] = {"case_id": cid, "label": e.get("label", ""), **params,
                                "status": str(m.get("status", "missing")), "reason": str(m.get("reason", "") or ""),
@@ -257,7 +265,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
             sp_blocks.append({"case_id": np.full(nf * k, cid, dtype=object),
                               "frequency_MHz": np.repeat(fb * 1e-6, k),
                               "i": np.tile(ii.ravel()[keep], nf), "j": np.tile(jj.ravel()[keep], nf),
-                              "z": z.ravel(), "params": params})
+                              "z": z.ravel(), "params": params, "f_case_MHz": f_Hz * 1e-6})
 
     # summary: fixed columns, parameters, per-mass SAR, per-limit columns, the rest
     summary = pd.DataFrame(summary_rows)
@@ -277,6 +285,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     if sp_blocks:
         z = np.concatenate([b["z"] for b in sp_blocks])
         sp = pd.DataFrame({"case_id": np.concatenate([b["case_id"] for b in sp_blocks])})
+        sp[CASE_FREQUENCY] = np.concatenate([np.full(b["z"].size, b["f_case_MHz"]) for b in sp_blocks])
         for col in dict.fromkeys(pcols.values()):
             sp[col] = np.concatenate([np.full(b["z"].size, b["params"].get(col), dtype=object) for b in sp_blocks])
             sp[col] = pd.Series(sp[col]).infer_objects()
@@ -287,9 +296,23 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         sp["mag_dB"] = complex2db(z)
         sp["phase_deg"] = np.rad2deg(np.angle(z))
     else:
-        sp = pd.DataFrame(columns=["case_id", *dict.fromkeys(pcols.values()), *SPARAMS_FIXED[1:]])
+        sp = pd.DataFrame(columns=["case_id", CASE_FREQUENCY, *dict.fromkeys(pcols.values()), *SPARAMS_FIXED[1:]])
     sar = pd.DataFrame(sar_rows, columns=list(SAR_COLUMNS))
     return {"summary": summary, "sparams": sp, "sar": sar}
+
+
+def arrow_safe(df: pd.DataFrame) -> pd.DataFrame:
+    """Object columns holding a mix of types (e.g. an option name in one case, a number in another)
+    become text, so that Parquet can store them; other columns are left as they are."""
+    out = df
+    for c in df.columns:
+        if df[c].dtype == object:
+            kinds = {type(v) for v in df[c] if v is not None and not (isinstance(v, float) and math.isnan(v))}
+            if len(kinds) > 1:
+                if out is df:
+                    out = df.copy()
+                out[c] = df[c].map(lambda v: None if v is None else str(v))
+    return out
 
 
 def write_frames(layout: StudyLayout, frames: dict[str, pd.DataFrame]) -> dict[str, Path]:
@@ -302,6 +325,7 @@ def write_frames(layout: StudyLayout, frames: dict[str, pd.DataFrame]) -> dict[s
     """
     out: dict[str, Path] = {}
     for name, df in frames.items():
+        df = arrow_safe(df)
         pq = layout.tables_dir / f"{name}.parquet"
         with atomic_path(pq) as tmp:
             df.to_parquet(tmp, index=False)

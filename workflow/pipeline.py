@@ -60,8 +60,7 @@ def parameter_key(parameters: dict) -> str:
 
 def plan_entry(case_dict: dict) -> dict:
     """The plan entry of one case (what collectors and the Snakefile need without opening case.json)."""
-    solver = case_dict.get("solver") or {}
-    ports = solver.get("excite_ports") or [1]
+    ports = case_dict.get("excite_ports") or (case_dict.get("solver") or {}).get("excite_ports") or [1]
     return {"case_id": case_dict["case_id"], "label": case_dict.get("label", ""),
             "parameters": case_dict.get("parameters", {}), "frequency_Hz": case_dict.get("frequency_Hz"),
             "ports": [int(p) for p in ports]}

@@ -201,7 +201,7 @@ def write_report(layout: StudyLayout) -> Path:
     summary = pd.read_parquet(layout.tables_dir / "summary.parquet")
     plan = read_plan(layout)
     pkeys: list[str] = list(dict.fromkeys(k for e in plan["cases"] for k in e.get("parameters", {})))
-    pcols = [f"param.{k}" if f"param.{k}" in summary.columns else k for k in pkeys]
+    pcols = [k if k == "frequency_MHz" else (f"param.{k}" if f"param.{k}" in summary.columns else k) for k in pkeys]
     rdir = layout.report_dir
     rdir.mkdir(parents=True, exist_ok=True)
     swept = swept_parameters(summary, pcols)

@@ -14,14 +14,11 @@ ON_SUCCESS = ("result.h5", "sparams.s2p")
 
 def case_json2case_id(case: dict) -> str:
     """Recompute a case's id from its ``case.json`` content (the study layer's identity rule)."""
-    from .study import identity
+    from .study.cases import identity_content
+    from .study.identity import content2case_id
 
-    fn = getattr(identity, "case2case_id", None)
-    if fn is not None:
-        return fn(case)
-    content = {k: case[k] for k in identity.IDENTITY_KEYS} if hasattr(identity, "IDENTITY_KEYS") else \
-        {k: case[k] for k in ("scene", "frequency_Hz", "solver", "sar", "versions") if k in case}
-    return identity.content2case_id(content)
+    return content2case_id(identity_content(case["scene"], case["frequency_Hz"], case["solver"], case["sar"],
+                                            case.get("excite_ports", [1]), case["versions"]))
 
 
 def verify_case(layout: StudyLayout, entry: dict) -> list[str]:

@@ -1,0 +1,74 @@
+"""Time the collector on 10,000 synthetic case folders (metrics.json only) in a temporary folder.
+
+    .venv/bin/python benchmarks/collect_scale.py [N]
+
+Prints the time to build the three tables in memory and to write them (Parquet + CSV).
+The metrics are random numbers in the shape of the case-folder contract; they mean nothing physically.
+"""
+from __future__ import annotations
+
+import json
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from bodysweep.workflow.atomic import json_text
+from bodysweep.workflow.collect import collect_frames, write_frames
+from bodysweep.workflow.layout import StudyLayout, write_plan
+
+
+def synthetic_study(root: Path, n: int, seed: int = 1) -> StudyLayout:
+    rng = np.random.default_rng(seed)
+    layout = StudyLayout.of("scale", root)
+    entries = []
+    for k in range(n):
+        cid = f"{k:012x}"
+        f = float(rng.choice([403e6, 433e6, 915e6]))
+        params = {"frequency_MHz": f * 1e-6, "scene.implant.depth_mm": float(rng.integers(3, 30)),
+                  "scene.external": str(rng.choice(["loop", "dipole"]))}
+        entries.append({"case_id": cid, "label": f"case {k}", "parameters": params, "frequency_Hz": f,
+                        "ports": [1]})
+        s = rng.normal(size=8) * 0.3
+        failed = rng.random() < 0.02
+        m = {"status": "failed", "reason": "synthetic failure"} if failed else {
+            "status": "ok", "reason": "", "frequency_Hz": f,
+            "S11": [s[0], s[1]], "S21": [s[2] * 0.01, s[3] * 0.01], "S12": [s[2] * 0.01, s[3] * 0.01],
+            "S22": [s[6], s[7]],
+            "sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": float(rng.uniform(1, 50)),
+                     "location_m": rng.normal(size=3).tolist()},
+                    {"mass_kg": 0.01, "peak_W_per_kg_per_W": float(rng.uniform(1, 20)),
+                     "location_m": rng.normal(size=3).tolist()}],
+            "limits": [{"mass_kg": 0.001, "limit_W_per_kg": 1.6, "source": "limit A",
+                        "max_input_power_W": float(rng.uniform(0.01, 1)), "delivered_power_W": float(rng.uniform(1e-6, 1e-3))},
+                       {"mass_kg": 0.01, "limit_W_per_kg": 2.0, "source": "limit B",
+                        "max_input_power_W": float(rng.uniform(0.01, 1)), "delivered_power_W": float(rng.uniform(1e-6, 1e-3))}],
+            "matched_link_efficiency": float(rng.uniform(1e-5, 1e-2)), "runtime_s": float(rng.uniform(5, 500)),
+            "cells": int(rng.integers(10_000, 1_000_000)), "timesteps": int(rng.integers(1000, 100_000)),
+            "decay_reached": True}
+        d = layout.case_dir(cid)
+        d.mkdir(parents=True)
+        (d / "metrics.json").write_text(json_text(m))
+    write_plan(layout, "scale", entries)
+    return layout
+
+
+def main(n: int = 10_000) -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        t0 = time.perf_counter()
+        layout = synthetic_study(Path(tmp), n)
+        t1 = time.perf_counter()
+        frames = collect_frames(layout)
+        t2 = time.perf_counter()
+        write_frames(layout, frames)
+        t3 = time.perf_counter()
+        print(f"generated {n} synthetic case folders in {t1 - t0:.1f} s")
+        print(f"collect {n} cases: tables in memory {t2 - t1:.2f} s, written (Parquet + CSV) {t3 - t2:.2f} s, "
+              f"total {t3 - t1:.2f} s")
+        print(f"rows: summary {len(frames['summary'])}, sparams {len(frames['sparams'])}, sar {len(frames['sar'])}")
+
+
+if __name__ == "__main__":
+    main(int(sys.argv[1]) if len(sys.argv) > 1 else 10_000)
