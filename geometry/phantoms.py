@@ -68,9 +68,9 @@ class PhantomBuild:
     materials: tuple = ()
 
 
-def _layer_hints(axis: str, lo: float, hi: float, name: str) -> list[MeshHint]:
+def _layer_hints(axis: str, lo: float, hi: float, name: str, thickness: float | None = None) -> list[MeshHint]:
     """Fixed lines at both faces and a cell cap of thickness / CELLS_PER_LAYER inside."""
-    t = hi - lo
+    t = hi - lo if thickness is None else thickness
     return [MeshHint(axis, lo, lo, 0.0, f"{name} interface"),
             MeshHint(axis, hi, hi, 0.0, f"{name} interface"),
             MeshHint(axis, lo, hi, t / CELLS_PER_LAYER, f"{name}: >= {CELLS_PER_LAYER} cells across")]
@@ -114,7 +114,7 @@ class LayeredSlab:
         for i, layer in enumerate(self.layers):
             prims.append(Box(f"layer{i}_{layer.tissue}", layer.tissue, (-hx, -hy, z[i + 1]), (hx, hy, z[i]),
                              priority=PRIORITY_TISSUE + i))
-            hints += _layer_hints("z", z[i + 1], z[i], f"layer {i} ({layer.tissue})")
+            hints += _layer_hints("z", z[i + 1], z[i], f"layer {i} ({layer.tissue})", layer.thickness_m)
         return PhantomBuild(tuple(prims), tuple(hints), ((-hx, -hy, z[-1]), (hx, hy, 0.0)))
 
     def contains(self, points) -> np.ndarray:
@@ -195,11 +195,11 @@ class LayeredCylinder:
             prims.append(Cylinder(f"{label}_{name}", name, s, e, float(radius), priority=PRIORITY_TISSUE + i))
             if i < len(self.layers):
                 ri = float(r[i + 1])
-                what = f"layer {i} ({name})"
-                hints += _layer_hints("z", -R + ri, -R + float(radius), what + " top")
-                hints += _layer_hints("z", -R - float(radius), -R - ri, what + " bottom")
-                hints += _layer_hints(lateral, ri, float(radius), what + " side")
-                hints += _layer_hints(lateral, -float(radius), -ri, what + " side")
+                what, t = f"layer {i} ({name})", self.layers[i].thickness_m
+                hints += _layer_hints("z", -R + ri, -R + float(radius), what + " top", t)
+                hints += _layer_hints("z", -R - float(radius), -R - ri, what + " bottom", t)
+                hints += _layer_hints(lateral, ri, float(radius), what + " side", t)
+                hints += _layer_hints(lateral, -float(radius), -ri, what + " side", t)
         a = axis_index(self.axis)
         lo, hi = [-R, -R, -2 * R], [R, R, 0.0]
         lo[a], hi[a] = -self.length_m / 2, self.length_m / 2
@@ -270,7 +270,7 @@ class LiquidBox:
         hx, hy, t, D = self.size_x_m / 2, self.size_y_m / 2, self.shell_thickness_m, self.depth_m
         prims = (Box(f"liquid_{self.liquid}", self.liquid, (-hx, -hy, -D), (hx, hy, 0.0), priority=PRIORITY_TISSUE),
                  Box("shell", SHELL_MATERIAL, (-hx, -hy, -t), (hx, hy, 0.0), priority=PRIORITY_TISSUE + 1))
-        hints = _layer_hints("z", -t, 0.0, "shell") + _layer_hints("z", -D, -t, "liquid")
+        hints = _layer_hints("z", -t, 0.0, "shell", t) + _layer_hints("z", -D, -t, "liquid")
         return PhantomBuild(prims, tuple(hints), ((-hx, -hy, -D), (hx, hy, 0.0)), (self.shell,))
 
     def contains(self, points) -> np.ndarray:

@@ -1,0 +1,98 @@
+"""Which material is at a point: primitives sampled with the priority rule (highest priority wins).
+
+Used by the preview and by tests; the same rule the solver adapter hands to the FDTD engine.
+On equal priority the primitive listed later wins.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .model import SceneModel
+from .primitives import Box, Cylinder, Polygon, Primitive, Wire, axis_index
+
+
+def points_in_polygon(xy, poly) -> np.ndarray:
+    """Even-odd rule: which 2-D points (shape (n, 2)) lie inside a polygon (shape (m, 2)); returns (n,) bool."""
+    xy = np.atleast_2d(np.asarray(xy, dtype=float))
+    P = np.asarray(poly, dtype=float)
+    x, y = xy[:, 0:1], xy[:, 1:2]
+    x0, y0 = P[:, 0][None, :], P[:, 1][None, :]
+    x1, y1 = np.roll(P[:, 0], -1)[None, :], np.roll(P[:, 1], -1)[None, :]
+    crosses = (y0 > y) != (y1 > y)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xint = x0 + (y - y0) * (x1 - x0) / (y1 - y0)
+    return (np.sum(crosses & (x < xint), axis=1) % 2) == 1
+
+
+def _segment_distance(p, a, b) -> np.ndarray:
+    ab = b - a
+    L2 = float(ab @ ab)
+    t = np.clip(((p - a) @ ab) / L2, 0.0, 1.0) if L2 > 0 else np.zeros(len(p))
+    return np.linalg.norm(p - (a + t[:, None] * ab), axis=1)
+
+
+def inside(prim: Primitive, points, tol: float = 0.0) -> np.ndarray:
+    """Whether points (shape (n, 3)) are inside a primitive; sheets and thin wires count within ``tol``.
+
+    Returns
+    -------
+    ndarray of bool, shape (n,)
+    """
+    p = np.atleast_2d(np.asarray(points, dtype=float))
+    if isinstance(prim, Box):
+        lo, hi = prim.bounds()
+        return np.all((p >= np.asarray(lo) - 1e-15) & (p <= np.asarray(hi) + 1e-15), axis=1)
+    if isinstance(prim, Cylinder):
+        s, e = np.asarray(prim.start), np.asarray(prim.stop)
+        a = e - s
+        L = np.linalg.norm(a)
+        a = a / L
+        t = (p - s) @ a
+        rho = np.linalg.norm((p - s) - t[:, None] * a, axis=1)
+        return (t >= -1e-15) & (t <= L + 1e-15) & (rho <= prim.radius + 1e-15)
+    if isinstance(prim, Wire):
+        r = max(prim.radius, tol)
+        pts = np.asarray(prim.points)
+        d = np.min([_segment_distance(p, a, b) for a, b in zip(pts[:-1], pts[1:])], axis=0)
+        return d <= r
+    if isinstance(prim, Polygon):
+        n = axis_index(prim.normal)
+        ia, ib = prim.plane_axes()
+        w = p[:, n]
+        in_slab = (w >= prim.elevation - tol - 1e-15) & (w <= prim.elevation + prim.thickness + tol + 1e-15)
+        out = np.zeros(len(p), dtype=bool)
+        if in_slab.any():
+            out[in_slab] = points_in_polygon(p[in_slab][:, [ia, ib]], prim.points)
+        return out
+    raise TypeError(f"unknown primitive {type(prim).__name__}")
+
+
+def material_index(model: SceneModel, points, tol: float = 0.0) -> np.ndarray:
+    """Index into ``model.materials`` of the material at each point, -1 for background air.
+
+    Parameters
+    ----------
+    model : SceneModel
+    points : array_like, shape (n, 3)
+    tol : float
+        Half-thickness given to zero-thickness sheets and thin wires (e.g. half a pixel).
+
+    Returns
+    -------
+    ndarray of int, shape (n,)
+    """
+    p = np.atleast_2d(np.asarray(points, dtype=float))
+    names = [m.name for m in model.materials]
+    best = np.full(len(p), -np.inf)
+    idx = np.full(len(p), -1, dtype=int)
+    for prim in model.primitives:
+        hit = inside(prim, p, tol) & (prim.priority >= best)
+        best[hit] = prim.priority
+        idx[hit] = names.index(prim.material)
+    return idx
+
+
+def material_at(model: SceneModel, points, tol: float = 0.0) -> list[str]:
+    """Material name at each point (``"air"`` for background), length n."""
+    names = [m.name for m in model.materials]
+    return ["air" if i < 0 else names[i] for i in material_index(model, points, tol)]
