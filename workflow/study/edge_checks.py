@@ -6,7 +6,8 @@ meaning of from the key alone, using the unit and the physical idea in the key's
 * every number is finite;
 * a length (``*_mm``) lies within +-10 m (10 000 mm): a larger value is most likely a unit slip;
 * a size (``thickness``, ``radius``, ``length``, ``width``, ``height``, ``diameter``, ``depth``,
-  ``gap``, ``size``, ``spacing``, ``pitch`` in the key) must be > 0;
+  ``gap``, ``size``, ``spacing``, ``pitch``, ``side`` in the key) must not be negative (zero is left to
+  the builders: a wire radius 0 means a thin wire);
 * a frequency (``*_MHz``) lies within the tissue models' validity 10 ... 6000 MHz (``*_GHz`` 0.01 ... 6);
 * a mass (``*_g``) is > 0.
 """
@@ -20,7 +21,7 @@ from .errors import StudyError, join_path
 MAX_ABS_LENGTH_MM = 10_000.0
 FREQUENCY_RANGE_MHZ = (10.0, 6000.0)
 SIZE_WORDS = ("thickness", "radius", "length", "width", "height", "diameter", "depth", "gap", "size",
-              "spacing", "pitch")
+              "spacing", "pitch", "side")
 
 
 def _numbers(value: Any, path: str) -> Iterator[tuple[str, float]]:
@@ -79,8 +80,8 @@ def check_edge_values(data: Any, path: str = "", context: str = "") -> None:
                 if abs(x) > MAX_ABS_LENGTH_MM:
                     raise StudyError(at, "length out of range (mm expected)" + suffix, x,
                                      f"-{MAX_ABS_LENGTH_MM:g} ... {MAX_ABS_LENGTH_MM:g} mm")
-                if any(w in lower for w in SIZE_WORDS) and not x > 0:
-                    raise StudyError(at, "a size must be positive" + suffix, x, "a length > 0 mm")
+                if any(w in lower for w in SIZE_WORDS) and x < 0:
+                    raise StudyError(at, "a size must not be negative" + suffix, x, "a length >= 0 mm")
             elif key.endswith("_MHz"):
                 lo, hi = FREQUENCY_RANGE_MHZ
                 if not lo <= x <= hi:

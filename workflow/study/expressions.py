@@ -110,10 +110,13 @@ def evaluate(tree: ast.Expression, values: Mapping[str, float], expr: str = "", 
         if isinstance(node, ast.UnaryOp):
             return _UNARY[type(node.op)](ev(node.operand))
         if isinstance(node, ast.Call):
-            return _FUNCTIONS[node.func.id](*(ev(a) for a in node.args))  # type: ignore[union-attr]
+            return _FUNCTIONS[node.func.id]([ev(a) for a in node.args])  # type: ignore[union-attr]
         raise _refuse(key_path, expr, f"{type(node).__name__} is not allowed")  # pragma: no cover - checked at parse
 
-    result = ev(tree)
+    try:
+        result = float(ev(tree))
+    except OverflowError:
+        result = math.inf
     if not math.isfinite(result):
         raise _refuse(key_path, expr, f"result {result!r} is not finite")
     return result

@@ -85,7 +85,7 @@ def _allowed(err: ValidationError) -> str:
         parts = ([f"{lo_op} {lo}"] if lo is not None else []) + ([f"{hi_op} {hi}"] if hi is not None else [])
         return "a number " + " and ".join(parts)
     if v == "pattern":
-        return f"text matching {val}"
+        return sch.get("description") or f"text matching {val}"
     if v in ("minItems", "maxItems"):
         return f"{'at least' if v == 'minItems' else 'at most'} {val} item(s)"
     if v in ("minProperties", "maxProperties"):
@@ -107,6 +107,11 @@ def _unknown_keys(err: ValidationError) -> list[str]:
     return []
 
 
+def sch_props(err: ValidationError) -> list[str]:
+    """Property names the failing schema declares."""
+    return list(err.schema.get("properties", {})) if isinstance(err.schema, dict) else []
+
+
 def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
     """Turn one schema error into a one-line :class:`StudyError` naming the key path."""
     path = join_path(prefix, *err.absolute_path)
@@ -124,7 +129,8 @@ def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
         bad = err.instance
         return StudyError(path, f"bad name {value2text(bad)}", bad, "names of letters, digits and _ (not starting with a digit)")
     if v == "maxProperties" and err.validator_value == 1 and isinstance(err.instance, dict):
-        return StudyError(path, "give exactly one of the keys", sorted(err.instance), _allowed(err))
+        return StudyError(path, "give exactly one of the keys", sorted(err.instance),
+                          "one of " + ", ".join(sorted(sch_props(err))))
     if v == "minProperties" and isinstance(err.instance, dict) and not err.instance:
         return StudyError(path, "must not be empty", err.instance, _allowed(err))
     if v == "minItems" and isinstance(err.instance, list) and not err.instance:

@@ -144,7 +144,7 @@ def sample_rows(kind: str, spec: dict, key_path: str) -> tuple[tuple[float, ...]
     hi = np.array([float(spec["ranges"][n][1]) for n in names])
     for n, a, b in zip(names, lo, hi):
         if not a < b:
-            raise StudyError(join_path(key_path, kind, "ranges", n), "range low must be below high", [a, b],
+            raise StudyError(join_path(key_path, kind, "ranges", n), "range low must be below high", spec["ranges"][n],
                              "[low, high] with low < high")
     count, seed = int(spec["count"]), int(spec["seed"])
     if kind == "random":
