@@ -98,7 +98,8 @@ apt_install() {
   say "apt-get install $miss"
   $SUDO apt-get update -q -o DPkg::Lock::Timeout=300 >/dev/null || die "apt-get update failed"
   # shellcheck disable=SC2086
-  $SUDO apt-get install "${APT_OPTS[@]}" $miss >/dev/null || die "apt-get install $miss failed"
+  $SUDO env DEBIAN_FRONTEND=noninteractive apt-get install "${APT_OPTS[@]}" $miss >/dev/null \
+    || die "apt-get install $miss failed"
 }
 
 python_modules_ok() {
@@ -240,6 +241,8 @@ SRC
       [[ -n "$where" && "$where" == "$PREFIX/"* ]] || die "$lib resolves to '${where:-nothing}', expected a file in $PREFIX"
     done
     { echo "$want_marker"; printf '%s\n' "${versions[@]}"; } > "$MARKER.tmp" && mv "$MARKER.tmp" "$MARKER"
+    # the bookworm package lists, apt's caches and the .debs are not needed any more (about 140 MB)
+    rm -rf "$APTDIR/lists" "$APTDIR/cache" "$ENGINE/debs13"
     say "private engine prefix ready ($(du -sh "$PREFIX" | cut -f1), $((SECONDS - t0)) s)"
   fi
   mver() { sed -n "s/^$1=//p" "$MARKER"; }
