@@ -21,6 +21,9 @@ wildcard_constraints:
     case=r"[^/]+",
     port=r"\d+",
 
+# Light steps run in this process, also when the solve/scene/finish jobs go to a cluster scheduler.
+localrules: all, collect, report
+
 rule all:
     input:
         RUN.layout.report_file,

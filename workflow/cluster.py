@@ -5,14 +5,12 @@ more makes it wait longer in the queue. The request is derived from the case's c
 engine memory in bytes, single-thread CPU seconds) with margins, and grows on each retry, so a job that
 hit its limit is resubmitted larger.
 
-The Snakemake rule that solves a case uses it as::
+The Snakemake rule that solves a case uses it as (workflow/rules/solve.smk)::
 
-    from bodysweep.workflow.cluster import resources_for_case, threads_for_case
+    from bodysweep.workflow.cluster import cluster_resources, threads_for_case
     rule solve:
         threads: lambda wc: threads_for_case(case_dir(wc))
-        resources:
-            mem_mb=lambda wc, attempt: resources_for_case(case_dir(wc), attempt=attempt)["mem_mb"],
-            runtime=lambda wc, attempt: resources_for_case(case_dir(wc), attempt=attempt)["runtime"],
+        resources: **cluster_resources(case_dir)      # mem_mb, runtime per case and attempt
 
 Resource names follow Snakemake's standard resources: ``mem_mb`` (megabytes; SLURM reads ``--mem``
 in MiB, so bytes are converted with 2**20), ``runtime`` (minutes, SLURM ``--time``), and the job's
@@ -184,17 +182,41 @@ def cost2resources(cost: CaseCost, threads: int, attempt: int = 1, sizing: JobSi
     return {"mem_mb": int(mem_mb), "runtime": int(runtime_min), "threads": int(threads)}
 
 
+_FOLDER_COSTS: dict[tuple[str, int, int], tuple[CaseCost, int]] = {}
+
+
 def _case_cost_from_folder(case_dir: Path) -> tuple[CaseCost, int]:
-    """The cost estimate of a case folder and the study's requested threads (0 = choose)."""
+    """The cost of one excitation of a prepared case and the study's requested threads (0 = choose).
+
+    The estimate comes from the case's mesh (:func:`bodysweep.workflow.cli.case_cost`, which calls the
+    mesh developer's :mod:`bodysweep.workflow.solver.cost`; no openEMS import). Its CPU time covers all
+    excited ports; one solve job runs one port, so it is divided by their number. Results are cached
+    per ``case.json`` modification time and size: Snakemake asks for a job's resources several times.
+    """
     case_file = case_dir / "case.json"
     try:
-        case = json.loads(case_file.read_text())
+        st = case_file.stat()
     except FileNotFoundError:
         raise FileNotFoundError(f"{case_file} does not exist; the case must be prepared before it is sized") from None
-    requested = int((case.get("solver") or {}).get("threads", 0) or 0)
-    from .solver.cost import estimate_case_cost  # the mesh developer's estimate (no openEMS import)
+    key = (str(case_file.resolve()), st.st_mtime_ns, st.st_size)
+    hit = _FOLDER_COSTS.get(key)
+    if hit is not None:
+        return hit
+    case = json.loads(case_file.read_text())
+    solver = case.get("solver") or {}
+    requested = int(solver.get("threads", 0) or 0)
+    n_ports = max(1, len(solver.get("excite_ports") or [1]))
+    from .cli import case_cost
 
-    return CaseCost.from_any(estimate_case_cost(case)), requested
+    est = case_cost(case)
+    cells, memory_b, cpu_s = est.get("cells"), est.get("memory_B"), est.get("cpu_s")
+    bad = [k for k, v in (("cells", cells), ("memory_B", memory_b), ("cpu_s", cpu_s)) if not (v == v and v)]
+    if bad:
+        raise ValueError(f"case {case.get('case_id', case_dir.name)}: the cost estimate has no {', '.join(bad)} "
+                         f"(got {est}); cannot size its cluster job")
+    cost = CaseCost(cells=int(cells), memory_bytes=float(memory_b), cpu_seconds=float(cpu_s) / n_ports)
+    _FOLDER_COSTS[key] = (cost, requested)
+    return cost, requested
 
 
 def resources_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, attempt: int = 1,
@@ -204,7 +226,7 @@ def resources_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, att
     Parameters
     ----------
     source : path, mapping or estimate
-        A case folder (its ``case.json`` is costed with :func:`bodysweep.workflow.solver.cost.estimate_case_cost`),
+        A prepared case folder (its ``case.json`` is meshed and costed, see :func:`_case_cost_from_folder`),
         or an estimate with ``cells``, ``memory_bytes``, ``cpu_seconds``.
     attempt : int
         Snakemake's attempt counter (1 on the first submission); each retry asks for more.
@@ -223,3 +245,28 @@ def resources_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, att
 def threads_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, sizing: JobSizing = DEFAULT_SIZING) -> int:
     """Threads for solving one case (see :func:`resources_for_case`)."""
     return resources_for_case(source, 1, sizing)["threads"]
+
+
+def cluster_resources(case_dir_of, sizing: JobSizing = DEFAULT_SIZING) -> dict:
+    """Snakemake ``resources:`` of the solve rule on a cluster: ``mem_mb`` and ``runtime`` per case and attempt.
+
+    Parameters
+    ----------
+    case_dir_of : callable
+        ``wildcards -> case folder`` of the job.
+    sizing : JobSizing
+        Margins.
+
+    Returns
+    -------
+    dict
+        ``{"mem_mb": f(wildcards, attempt), "runtime": f(wildcards, attempt)}``, for
+        ``resources: **cluster_resources(...)`` in a rule.
+    """
+    def mem_mb(wildcards, attempt):
+        return resources_for_case(case_dir_of(wildcards), attempt=attempt, sizing=sizing)["mem_mb"]
+
+    def runtime(wildcards, attempt):
+        return resources_for_case(case_dir_of(wildcards), attempt=attempt, sizing=sizing)["runtime"]
+
+    return {"mem_mb": mem_mb, "runtime": runtime}
