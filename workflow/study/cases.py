@@ -14,7 +14,7 @@ from .errors import StudyError, join_path
 from .expressions import evaluate
 from .identity import code_versions, content2case_id
 from .paths import get_path, has_path, parent_exists, path2parts, set_path
-from .study import Study
+from .study import Study, base_value, declared_solver_key
 
 
 @dataclass(frozen=True)
@@ -141,7 +141,7 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
         if p.is_choice:
             parameters[p.path] = values[n]
             continue
-        if not has_path(doc, p.path):
+        if not has_path(doc, p.path) and not declared_solver_key(p.path):
             raise StudyError(join_path("sweep.parameters", n), f"in case {label}: path {p.path!r} does not exist "
                              "(the chosen options do not have it)", p.path, "a path present in every case")
         set_path(doc, p.path, values[n])
@@ -149,7 +149,7 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
     env: dict[str, Any] = {"frequency_MHz": freq_MHz}
     for n, p in params.items():
         if not p.is_choice:
-            env[n] = get_path(doc, p.path, None)
+            env[n] = base_value(doc, p.path)
     for d in study.derived:
         where = join_path("derived", d.name)
         for n in d.names:
@@ -160,7 +160,7 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
             value = evaluate(d.tree, env, d.expr, join_path(where, "expr"))
         except StudyError as exc:
             raise StudyError(exc.key_path, f"in case {label}: {exc.problem}", exc.value, exc.allowed) from None
-        if not has_path(doc, d.path):
+        if not has_path(doc, d.path) and not declared_solver_key(d.path):
             raise StudyError(join_path(where, "path"), f"in case {label}: path {d.path!r} does not exist",
                              d.path, "a path present in every case")
         value = float(f"{float(value):.12g}")  # drop float noise such as 30.299999999999997

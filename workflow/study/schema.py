@@ -167,3 +167,12 @@ def validate_study_data(data: Any) -> None:
         return
     err = best_match(errors)
     raise error2study_error(err)
+
+
+def solver_key_defaults() -> dict[str, Any]:
+    """Top-level keys the solver section's schema declares, with their defaults (``None`` if none).
+
+    A sweep may change such a key even when the study file leaves it out (it then has its preset value).
+    """
+    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json") or {}
+    return {k: v.get("default") for k, v in schema.get("properties", {}).items() if isinstance(v, dict)}

@@ -16,7 +16,7 @@ from .errors import StudyError, join_path
 from .expressions import expression_names, parse_expression
 from .paths import get_path, has_path, parent_exists, path2parts
 from .safe_yaml import load_yaml_file, text2data, bytes2text
-from .schema import study_schema, validate_study_data
+from .schema import solver_key_defaults, study_schema, validate_study_data
 from .sweeps import RESERVED_NAMES, Block, Parameter, block_kind, block_names, block_rows, block_size
 
 #: default largest number of cases a study may expand to (``budget.max_cases`` raises it)
@@ -121,13 +121,28 @@ def _plain(data: Any, path: str = "") -> Any:
                      "mappings, lists, strings, numbers, booleans, null")
 
 
+def declared_solver_key(path: str) -> bool:
+    """True for ``solver.<key>`` where ``<key>`` is declared by the solver schema (present or not)."""
+    parts = path2parts(path)
+    return len(parts) == 2 and parts[0] == "solver" and parts[1] in solver_key_defaults()
+
+
+def base_value(base: dict, path: str) -> Any:
+    """Value at ``path`` in the base, or the solver schema's default for an unwritten solver key."""
+    if has_path(base, path):
+        return get_path(base, path)
+    if declared_solver_key(path):
+        return solver_key_defaults().get(path2parts(path)[1])
+    return None
+
+
 def _section_of(path: str) -> str:
     return path2parts(path)[0]  # "scene" or "solver"
 
 
 def _check_path(path: str, where: str, base: dict, choices: dict[str, Parameter]) -> None:
     """A plain parameter's or derived value's path exists in the base, or inside a choice's options."""
-    if has_path(base, path):
+    if has_path(base, path) or declared_solver_key(path):
         return
     for c in choices.values():
         if path.startswith(c.path + "."):
@@ -164,7 +179,7 @@ def _parameters(raw: dict, base: dict) -> dict[str, Parameter]:
                 check_edge_values(value, join_path(where, "options", opt_name))
         else:
             _check_path(p.path, where, base, choices)
-            current = get_path(base, p.path, None)
+            current = base_value(base, p.path)
             if isinstance(current, (dict, list)):
                 raise StudyError(where, f"path {p.path!r} holds a mapping or list; sweep a scalar inside it, "
                                  "or give options", p.path, "a path to a number or string, or {path, options}")
@@ -215,7 +230,7 @@ def _check_value(p: Parameter, v: Any, base: dict, where: str, kind: str, r: int
         if not isinstance(v, str) or v not in p.options:
             raise StudyError(at, f"not an option of {n!r}", v, ", ".join(p.options))
         return
-    current = get_path(base, p.path, None)
+    current = base_value(base, p.path)
     if isinstance(current, str) and not isinstance(v, str):
         raise StudyError(at, f"{p.path} holds text in the base scene; give text", v, "a string")
     if isinstance(current, (int, float)) and not isinstance(current, bool) and isinstance(v, str):
@@ -227,11 +242,11 @@ def _check_value(p: Parameter, v: Any, base: dict, where: str, kind: str, r: int
             raise StudyError(at, exc.problem + f" for {p.path}", v, exc.allowed) from None
 
 
-def _derived(raw: dict, params: dict[str, Parameter], base: dict) -> tuple[Derived, ...]:
+def _derived(raw: dict, params: dict[str, Parameter], base: dict, swept: set[str]) -> tuple[Derived, ...]:
     out = []
     known = set(params) | {"frequency_MHz"}
     choices = {n: p for n, p in params.items() if p.is_choice}
-    used_paths = {p.path: n for n, p in params.items()}
+    used_paths = {p.path: n for n, p in params.items() if n in swept}
     for name, d in raw.get("derived", {}).items():
         where = join_path("derived", name)
         if name in params or name in RESERVED_NAMES:
@@ -328,6 +343,6 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
     freqs = tuple(float(f) * 1e6 for f in raw["frequencies_MHz"])
     params = _parameters(raw, base)
     blocks = _blocks(raw, params, base, len(freqs), limit)
-    derived = _derived(raw, params, base)
+    derived = _derived(raw, params, base, {n for b in blocks for n in b.names})
     return Study(name=name, frequencies_Hz=freqs, raw=raw, parameters=params, blocks=blocks, derived=derived,
                  excite_ports=excite, max_cases=limit, source=origin)

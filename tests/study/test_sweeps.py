@@ -1,0 +1,196 @@
+"""Sweep kinds, their combination, choices, derived values, labels and parameters."""
+from __future__ import annotations
+
+import copy
+import itertools
+from pathlib import Path
+
+import numpy as np
+import pytest
+import yaml
+from scipy.stats import qmc
+
+from bodysweep.workflow.study import StudyError, expand, load_study
+
+GOOD = Path(__file__).parent / "good"
+
+
+def _minimal() -> dict:
+    return yaml.safe_load((GOOD / "minimal.yaml").read_text())
+
+
+def _study(parameters: dict, blocks: list, **extra) -> dict:
+    d = _minimal()
+    d["sweep"] = {"parameters": parameters, "blocks": blocks}
+    d.update(extra)
+    return d
+
+
+P = {"depth": "scene.implant.depth_mm", "skin": "scene.phantom.layers.0.thickness_mm",
+     "fat": "scene.phantom.layers.1.thickness_mm", "len": "scene.implant.length_mm"}
+
+
+def _values(cases, *paths):
+    return [tuple(c.parameters[p] for p in paths) for c in cases]
+
+
+def test_grid_runs_like_itertools_product():
+    depths, fats = [5, 10, 15], [3, 4]
+    cases = expand(load_study(_study(P, [{"grid": {"depth": depths, "fat": fats}}])))
+    # reference: itertools.product (last-written parameter fastest)
+    assert _values(cases, P["depth"], P["fat"]) == list(itertools.product(depths, fats))
+    # and the values land in the SI scene (mm -> m, SI prefix)
+    assert [c.scene["implant"]["depth_m"] for c in cases] == [d * 1e-3 for d, _ in itertools.product(depths, fats)]
+
+
+def test_zip_varies_together_and_list_keeps_rows():
+    cases = expand(load_study(_study(P, [{"zip": {"skin": [1, 2, 3], "fat": [4, 5, 6]}}])))
+    assert _values(cases, P["skin"], P["fat"]) == [(1, 4), (2, 5), (3, 6)]  # reference: builtin zip
+    rows = [{"depth": 7, "fat": 3}, {"depth": 5, "fat": 4.5}]
+    cases = expand(load_study(_study(P, [{"list": rows}])))
+    assert _values(cases, P["depth"], P["fat"]) == [(7, 3), (5, 4.5)]
+
+
+def test_random_block_equals_numpy_default_rng():
+    spec = {"seed": 42, "count": 6, "ranges": {"depth": [5, 20], "len": [8, 12]}, "decimals": None}
+    cases = expand(load_study(_study(P, [{"random": spec}])))
+    # reference: numpy Generator.uniform with the same seed, columns in the written order
+    ref = np.random.default_rng(42).uniform([5, 8], [20, 12], size=(6, 2))
+    np.testing.assert_array_equal(np.array(_values(cases, P["depth"], P["len"])), ref)
+    assert all(5 <= d < 20 and 8 <= L < 12 for d, L in _values(cases, P["depth"], P["len"]))
+
+
+def test_latin_hypercube_equals_scipy_and_fills_every_stratum():
+    n = 8
+    spec = {"seed": 3, "count": n, "ranges": {"depth": [5, 21], "len": [8, 12]}, "decimals": None}
+    cases = expand(load_study(_study(P, [{"latin_hypercube": spec}])))
+    got = np.array(_values(cases, P["depth"], P["len"]))
+    # reference: scipy.stats.qmc.LatinHypercube with the same seed, scaled by qmc.scale
+    ref = qmc.scale(qmc.LatinHypercube(d=2, rng=np.random.default_rng(3)).random(n), [5, 8], [21, 12])
+    np.testing.assert_allclose(got, ref, rtol=0, atol=0)
+    # Latin-hypercube property (McKay, Beckman & Conover 1979): each of the n equal strata of every
+    # range holds exactly one sample
+    for j, (lo, hi) in enumerate([(5, 21), (8, 12)]):
+        strata = np.floor((got[:, j] - lo) / (hi - lo) * n).astype(int)
+        assert sorted(strata) == list(range(n))
+
+
+def test_sampling_rounds_to_decimals_and_is_reproducible():
+    spec = {"seed": 9, "count": 4, "ranges": {"depth": [5, 20]}, "decimals": 1}
+    a = _values(expand(load_study(_study(P, [{"random": spec}]))), P["depth"])
+    b = _values(expand(load_study(_study(P, [{"random": spec}]))), P["depth"])
+    assert a == b
+    assert all(round(v, 1) == v for (v,) in a)
+    spec2 = dict(spec, seed=10)
+    assert _values(expand(load_study(_study(P, [{"random": spec2}]))), P["depth"]) != a
+
+
+def test_blocks_combine_as_a_product_with_frequency_outermost():
+    d = _study(P, [{"grid": {"depth": [5, 10]}}, {"zip": {"skin": [1, 2], "fat": [3, 4]}}], frequencies_MHz=[403, 915])
+    cases = expand(load_study(d))
+    ref = [(f, dep, s, fa) for f in (403.0, 915.0) for dep in (5, 10) for s, fa in ((1, 3), (2, 4))]
+    assert _values(cases, "frequency_MHz", P["depth"], P["skin"], P["fat"]) == ref
+    assert cases[0].label == "f=403MHz depth=5mm skin=1mm fat=3mm"
+    assert [c.frequency_Hz for c in cases] == [r[0] * 1e6 for r in ref]
+
+
+def test_choice_replaces_a_whole_subtree_and_nested_path_follows_it():
+    loop = {"type": "loop", "shape": "circular", "radius_mm": 12, "trace_width_mm": 1.5, "feed_gap_mm": 1,
+            "turns": 1, "normal": "z", "position_mm": [0, 0], "standoff_mm": 3, "conductor": "pec"}
+    base_ext = _minimal()["scene"]["external"]
+    params = {"ext": {"path": "scene.external", "options": {"dipole": base_ext, "loop": loop}},
+              "standoff": "scene.external.standoff_mm",
+              "rods": {"path": "scene.concentrators", "options": {"none": [], "two": [{"type": "rod_pair"}] * 2}}}
+    cases = expand(load_study(_study(params, [{"grid": {"ext": ["dipole", "loop"], "rods": ["none", "two"]}},
+                                              {"grid": {"standoff": [2, 4]}}])), check_scene=False)
+    assert len(cases) == 8
+    c = next(c for c in cases if c.parameters["scene.external"] == "loop" and c.parameters["scene.concentrators"] == "two")
+    assert c.scene["external"]["type"] == "loop" and c.scene["external"]["radius_m"] == 12e-3
+    assert len(c.scene["concentrators"]) == 2
+    assert c.scene["external"]["standoff_m"] in (2e-3, 4e-3)
+    assert c.label.startswith("f=403MHz ext=loop rods=two standoff=")
+
+
+def test_path_only_in_one_option_fails_for_the_other_with_the_case_label():
+    loop = {"type": "loop", "radius_mm": 12, "feed_gap_mm": 1, "standoff_mm": 3}
+    params = {"ext": {"path": "scene.external", "options": {"dipole": _minimal()["scene"]["external"], "loop": loop}},
+              "r": "scene.external.radius_mm"}
+    study = load_study(_study(params, [{"grid": {"ext": ["loop", "dipole"]}}, {"grid": {"r": [10, 12]}}]))
+    with pytest.raises(StudyError) as info:
+        expand(study, check_scene=False)
+    assert info.value.key_path == "sweep.parameters.r"
+    assert "f=403MHz ext=dipole r=10mm" in str(info.value)
+
+
+def test_derived_values_use_parameters_frequency_and_earlier_derived():
+    d = _study(P, [{"grid": {"depth": [5, 12]}}], frequencies_MHz=[403, 433])
+    d["derived"] = {
+        "muscle": {"path": "scene.phantom.layers.2.thickness_mm", "expr": "max(2 * depth, 20) + skin"},
+        "len2": {"path": "scene.implant.length_mm", "expr": "min(muscle / 3, 150000 / frequency_MHz / 20)"},
+    }
+    cases = expand(load_study(d))
+    for c in cases:
+        depth, f = c.parameters[P["depth"]], c.parameters["frequency_MHz"]
+        muscle = max(2 * depth, 20) + 2  # skin 2 mm in the base scene; hand arithmetic (analytic)
+        assert c.parameters["scene.phantom.layers.2.thickness_mm"] == pytest.approx(muscle, rel=1e-12)
+        assert c.scene["phantom"]["layers"][2]["thickness_m"] == pytest.approx(muscle * 1e-3, rel=1e-12)
+        assert c.parameters["scene.implant.length_mm"] == pytest.approx(min(muscle / 3, 150000 / f / 20), rel=1e-12)
+
+
+def test_derived_names_unknown_or_later_are_refused():
+    d = _study(P, [{"grid": {"depth": [5]}}])
+    d["derived"] = {"a": {"path": "scene.implant.length_mm", "expr": "b + 1"},
+                    "b": {"path": "scene.phantom.layers.2.thickness_mm", "expr": "depth"}}
+    with pytest.raises(StudyError) as info:
+        load_study(d)
+    assert info.value.key_path == "derived.a.expr" and "b" in str(info.value)
+
+
+def test_max_cases_default_budget_and_keyword():
+    grid = {"grid": {"depth": list(range(1, 101)), "len": list(range(1, 101))}}  # 10000 rows
+    d = _study(P, [grid, {"grid": {"fat": [3, 4]}}])
+    with pytest.raises(StudyError) as info:
+        load_study(d)  # 20000 > 10000 (default)
+    assert info.value.key_path == "sweep.blocks" and "20000" in str(info.value)
+    assert load_study(dict(d, budget={"max_cases": 20000})).n_cases == 20000
+    with pytest.raises(StudyError):
+        load_study(_study(P, [{"grid": {"depth": [5, 10, 15]}}]), max_cases=2)
+
+
+def test_parameters_and_labels_carry_edge_units():
+    d = _study({**P, "cpw": "solver.cells_per_wavelength", "tissue": "scene.phantom.layers.2.tissue"},
+               [{"grid": {"depth": [7.25], "cpw": [12], "tissue": ["muscle", "fat_not_infiltrated"]}}])
+    cases = expand(load_study(d))
+    assert cases[0].parameters == {"frequency_MHz": 403.0, "scene.implant.depth_mm": 7.25,
+                                   "solver.cells_per_wavelength": 12, "scene.phantom.layers.2.tissue": "muscle"}
+    assert cases[0].label == "f=403MHz depth=7.25mm cpw=12 tissue=muscle"
+    assert cases[0].solver["cells_per_wavelength"] == 12.0
+    assert cases[1].scene["phantom"]["layers"][2]["tissue"] == "fat_not_infiltrated"
+
+
+def test_case_dict_has_the_case_folder_contract_keys():
+    d = _study(P, [{"grid": {"depth": [5]}}], excite=[1, 2])
+    c = expand(load_study(d))[0].to_dict()
+    assert set(c) == {"case_id", "label", "study", "parameters", "frequency_Hz", "scene", "solver", "sar",
+                      "excite_ports", "versions"}
+    assert c["excite_ports"] == [1, 2] and c["solver"]["excite_ports"] == [1, 2]
+    assert set(c["versions"]) == {"builder", "adapter", "post"}
+    # default SAR limits are the schema defaults; 1 g = 1e-3 kg (SI prefix)
+    assert c["sar"]["masses_kg"] == [1e-3, 1e-2]
+    assert [lim["mass_kg"] for lim in c["sar"]["limits"]] == [1e-3, 1e-2]
+    from bodysweep.workflow.solver.settings import settings_from_dict
+    assert settings_from_dict(c["solver"]).to_dict() == c["solver"]
+
+
+def test_raw_is_the_validated_mapping_with_defaults():
+    study = load_study(_minimal())
+    assert study.raw["excite"] == [1] and study.raw["sar"]["masses_g"] == [1, 10]
+    assert study.raw["budget"]["max_cases"] == 10000
+    assert study.raw["scene"] == _minimal()["scene"]
+
+
+def test_mapping_input_is_not_modified():
+    d = _study(P, [{"grid": {"depth": [5, 10]}}])
+    before = copy.deepcopy(d)
+    expand(load_study(d))
+    assert d == before
