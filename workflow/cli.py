@@ -234,8 +234,12 @@ def cmd_run(a) -> int:
 
     stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
     log = prep.layout.logs_dir / f"snakemake_{stamp}.log"
+    from .cluster import site_resource_args
+    from .pipeline import resolve_profile
+
+    site = site_resource_args(resolve_profile(a.profile), a.partition, a.account)
     args = snakemake_args(a.study, results_dir=a.results_dir, workdir=".", cores=a.cores, jobs=a.jobs,
-                          threads_per_job=a.threads_per_job, profile=a.profile)
+                          threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
     rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".")
     if rc != 0:
         marked = mark_unfinished(prep.layout, prep.entries)
@@ -371,6 +375,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="engine threads per solve job (default: 2 on this machine, 1 on one core)")
     p.add_argument("--profile", default="local",
                    help="Snakemake profile: a name in workflow/profiles/ (local, ...) or a folder with config.yaml")
+    # cluster site settings (workflow/README_cluster.md); they apply to every job sent to the scheduler
+    p.add_argument("--partition", default=None, help="cluster partition (queue) for the jobs, e.g. with --profile slurm")
+    p.add_argument("--account", default=None, help="cluster account the jobs are charged to, e.g. with --profile slurm")
     g = p.add_mutually_exclusive_group()
     g.add_argument("--retry-failed", action="store_true", help="rerun cases that failed in an earlier run")
     g.add_argument("--skip-failed", action="store_true",

@@ -270,3 +270,38 @@ def cluster_resources(case_dir_of, sizing: JobSizing = DEFAULT_SIZING) -> dict:
         return resources_for_case(case_dir_of(wildcards), attempt=attempt, sizing=sizing)["runtime"]
 
     return {"mem_mb": mem_mb, "runtime": runtime}
+
+
+def profile2default_resources(profile_dir: str | os.PathLike | None) -> list[str]:
+    """The ``default-resources`` of a Snakemake profile as ``NAME=VALUE`` strings (empty without one)."""
+    if profile_dir is None:
+        return []
+    import yaml
+
+    path = Path(profile_dir) / "config.yaml"
+    if not path.exists():
+        return []
+    conf = yaml.safe_load(path.read_text()) or {}
+    res = conf.get("default-resources") or conf.get("default_resources") or []
+    if isinstance(res, Mapping):
+        return [f"{k}={v}" for k, v in res.items()]
+    return [str(r) for r in res]
+
+
+def site_resource_args(profile_dir: str | os.PathLike | None, partition: str | None = None,
+                       account: str | None = None) -> list[str]:
+    """Snakemake options putting every cluster job into ``partition`` and charging it to ``account``.
+
+    A ``--default-resources`` given on the command line replaces the profile's whole list, so the
+    profile's entries are repeated with ``slurm_partition``/``slurm_account`` set (or replaced).
+    Returns ``[]`` when neither is given.
+    """
+    site = {k: v for k, v in (("slurm_partition", partition), ("slurm_account", account)) if v}
+    if not site:
+        return []
+    for k, v in site.items():
+        if not all(c.isalnum() or c in "-_.," for c in v):
+            raise ValueError(f"cluster {k.split('_')[1]} {v!r}: use letters, digits, '-', '_', '.' or ','")
+    kept = [r for r in profile2default_resources(profile_dir) if r.split("=", 1)[0].strip() not in site]
+    # quoted so that Snakemake reads the value as a string, not as a Python name
+    return ["--default-resources", *kept, *(f"{k}='{v}'" for k, v in site.items())]

@@ -89,6 +89,7 @@ SlurmctldDebug=info
 SlurmdDebug=info
 NodeName=${host} NodeAddr=127.0.0.1 CPUs=${cpus} RealMemory=${mem_mb} State=UNKNOWN
 PartitionName=local Nodes=${host} Default=YES MaxTime=INFINITE State=UP
+PartitionName=bulk Nodes=${host} Default=NO MaxTime=INFINITE State=UP
 EOF
 }
 
