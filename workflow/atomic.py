@@ -24,7 +24,7 @@ def atomic_path(path: str | os.PathLike, suffix: str | None = None) -> Iterator[
         Final file name. Its folder is created if missing.
     suffix : str, optional
         Suffix of the temporary name (default: the final name's suffix, so that writers that pick a
-        format from the suffix -- matplotlib, pandas -- see the right one).
+        format from the suffix -- matplotlib, h5py, pandas -- see the right one).
 
     Examples
     --------
@@ -33,7 +33,8 @@ def atomic_path(path: str | os.PathLike, suffix: str | None = None) -> Iterator[
     """
     final = Path(path)
     final.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{final.name}.", suffix=(final.suffix if suffix is None else suffix) + ".part",
+    # hidden temporary name ending in the real suffix: ".<name>.<random>.part<suffix>"
+    fd, tmp_name = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".part" + (final.suffix if suffix is None else suffix),
                                     dir=final.parent)
     os.close(fd)
     tmp = Path(tmp_name)

@@ -121,51 +121,42 @@ def plot_peak_sar(summary: pd.DataFrame, path: Path) -> Path | None:
     return _save(fig, path)
 
 
-def read_sar_volume(result_h5: Path) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray, np.ndarray], str]:
-    """Point SAR per watt and its mesh from a case's ``result.h5``.
+def read_sar_volume(result_h5: Path, name: str = "local") -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    """A SAR volume per watt and its cell centres from a case's ``result.h5``.
+
+    Parameters
+    ----------
+    result_h5 : Path
+        The file written by the finish step (group ``sar``: ``local``, ``avg_<m>g``, ``<a>_edges_m``).
+    name : str
+        ``"local"`` (point SAR) or an averaged volume such as ``"avg_10g"``.
 
     Returns
     -------
     sar : ndarray, shape (nx, ny, nz)
-        SAR in W/kg per watt of input power (the un-averaged, local SAR when present).
+        SAR in W/kg per watt accepted at port 1.
     (x, y, z) : ndarrays of shapes (nx,), (ny,), (nz,)
         Cell-centre coordinates in metres.
-    name : str
-        Which dataset was read.
     """
     import h5py
 
     with h5py.File(result_h5, "r") as h5:
-        names: list[str] = []
-        h5.visit(names.append)
-        cand = [n for n in names if isinstance(h5[n], h5py.Dataset) and h5[n].ndim == 3 and "sar" in n.lower()]
-        if not cand:
-            raise KeyError(f"{result_h5}: no 3-D SAR dataset (found {names[:20]})")
-        # prefer the local (point) SAR, then the smallest averaging mass
-        cand.sort(key=lambda n: (0 if re.search(r"local|point|raw", n, re.I) else 1, n))
-        name = cand[0]
-        sar = h5[name][()]
-        ax = []
-        for a in ("x", "y", "z"):
-            hits = [n for n in names if isinstance(h5[n], h5py.Dataset) and h5[n].ndim == 1
-                    and re.search(rf"(^|/)(mesh/)?{a}(_m)?$", n, re.I)]
-            if not hits:
-                raise KeyError(f"{result_h5}: no mesh coordinate for {a}")
-            ax.append(h5[sorted(hits, key=len)[0]][()])
-    x, y, z = (np.asarray(v, float) for v in ax)
-    # lines (n+1) -> cell centres (n) when the volume is given per cell
-    fix = []
-    for v, n in zip((x, y, z), sar.shape):
-        fix.append(0.5 * (v[1:] + v[:-1]) if v.size == n + 1 else v)
-    if tuple(v.size for v in fix) != sar.shape:
-        raise ValueError(f"{result_h5}: SAR shape {sar.shape} does not match mesh {[v.size for v in fix]}")
-    return sar, (fix[0], fix[1], fix[2]), name
+        if "sar" not in h5 or name not in h5["sar"]:
+            raise KeyError(f"{result_h5}: no SAR volume sar/{name}")
+        g = h5["sar"]
+        sar = g[name][()].astype(float)
+        edges = [g[f"{a}_edges_m"][()] for a in "xyz"]
+    centres = tuple(0.5 * (e[1:] + e[:-1]) for e in edges)
+    if tuple(c.size for c in centres) != sar.shape:
+        raise ValueError(f"{result_h5}: SAR shape {sar.shape} does not match the grid {[c.size for c in centres]}")
+    return sar, centres  # type: ignore[return-value]
 
 
 def plot_sar_section(result_h5: Path, path: Path, title: str) -> Path:
     """Two cross-sections (x-z and y-z) through the SAR peak, in dB relative to the peak."""
     plt = _plt()
-    sar, (x, y, z), name = read_sar_volume(result_h5)
+    name = "local"
+    sar, (x, y, z) = read_sar_volume(result_h5, name)
     sar = np.nan_to_num(np.asarray(sar, float), nan=0.0)
     i, j, k = np.unravel_index(int(np.argmax(sar)), sar.shape)
     peak = sar[i, j, k]
@@ -182,7 +173,7 @@ def plot_sar_section(result_h5: Path, path: Path, title: str) -> Path:
         ax.set_title(fixed, fontsize=9)
         ax.set_aspect("equal")
     fig.colorbar(im, ax=axes, label="SAR relative to the peak (dB)")
-    fig.suptitle(f"{title}\npeak {peak:.3g} W/kg per W ({name}) at "
+    fig.suptitle(f"{title}\npeak local SAR {peak:.3g} W/kg per W accepted at port 1, at "
                  f"({x[i] * 1e3:.1f}, {y[j] * 1e3:.1f}, {z[k] * 1e3:.1f}) mm", fontsize=9)
     return _save(fig, path)
 

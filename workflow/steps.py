@@ -61,13 +61,14 @@ def build_scene(case_dir: str | Path) -> dict:
     case_dir = Path(case_dir)
     case = _read(case_dir / "case.json")
     try:
-        from bodysweep.geometry.preview import preview_png
         from bodysweep.geometry.scene import Scene
 
         model = Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))
         out = model.to_dict()
         write_json(case_dir / "scene.json", out)
         try:
+            from bodysweep.geometry.preview import preview_png
+
             with atomic_path(case_dir / "preview.png") as tmp:
                 preview_png(model, tmp)
         except Exception as exc:  # a preview problem is not a case failure
