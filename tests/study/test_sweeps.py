@@ -194,3 +194,22 @@ def test_mapping_input_is_not_modified():
     before = copy.deepcopy(d)
     expand(load_study(d))
     assert d == before
+
+
+def test_scene_builder_errors_surface_at_expansion_with_the_case_label():
+    pytest.importorskip("bodysweep.geometry.scene")
+    d = _study({"ph": "scene.phantom.type"}, [{"grid": {"ph": ["layered_slab", "layered_blob"]}}])
+    with pytest.raises(StudyError) as info:
+        expand(load_study(d))
+    err = info.value
+    assert err.key_path == "scene"
+    assert "f=403MHz ph=layered_blob" in str(err) and "\n" not in str(err)
+    # the study layer alone (scene builder off) accepts it
+    assert len(expand(load_study(d), check_scene=False)) == 2
+
+
+def test_scene_is_the_builders_resolved_form():
+    scene_mod = pytest.importorskip("bodysweep.geometry.scene")
+    c = expand(load_study(_minimal()))[0]
+    # the scene builder's own round trip is the reference for "fully resolved"
+    assert scene_mod.Scene.from_dict(c.scene).to_dict() == c.scene

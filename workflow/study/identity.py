@@ -1,8 +1,9 @@
 """Case identity: a short hash of the canonical JSON of a fully resolved case plus the code versions.
 
 Canonical JSON: keys sorted, no whitespace, every number written as a float through ``repr``
-(so ``10``, ``10.0`` and ``1e1`` are the same), ``-0.0`` written as ``0.0``, tuples as lists,
-non-finite numbers refused. The study name and the label are *not* part of the identity: the same
+(so ``10``, ``10.0`` and ``1e1`` are the same) after rounding to 15 significant digits (so that
+``0.1`` mm converted to metres and ``0.0001`` m give the same text: the conversion's rounding error
+is below 1e-16 relative), ``-0.0`` written as ``0.0``, tuples as lists, non-finite numbers refused. The study name and the label are *not* part of the identity: the same
 case in two studies has the same id.
 """
 from __future__ import annotations
@@ -14,6 +15,8 @@ from typing import Any
 
 #: hex characters kept of the sha256 digest
 CASE_ID_LENGTH = 12
+#: numbers are rounded to this many significant digits before hashing
+SIGNIFICANT_DIGITS = 15
 
 
 def _normalise(obj: Any, where: str = "") -> Any:
@@ -23,6 +26,7 @@ def _normalise(obj: Any, where: str = "") -> Any:
         x = float(obj)
         if not math.isfinite(x):
             raise ValueError(f"{where or 'value'}: non-finite number {obj!r} cannot be part of a case identity")
+        x = float(f"{x:.{SIGNIFICANT_DIGITS}g}")
         return 0.0 if x == 0.0 else x
     if hasattr(obj, "item") and callable(obj.item) and getattr(obj, "shape", None) == ():  # numpy scalar
         return _normalise(obj.item(), where)
