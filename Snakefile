@@ -6,7 +6,7 @@
 # The study file is the config. Reading it here expands the study and writes each case's case.json only
 # when its content changed (results/<study>/cases/<case_id>/), so an unchanged rerun schedules nothing.
 # Optional config keys (--config k=v): results_dir (default results), threads_per_job (engine threads
-# per solve job; default 2 on this machine, 1 on a single core).
+# per solve job; default 1, so that the cores run cases side by side).
 import sys
 
 from bodysweep.workflow.pipeline import snakefile_context

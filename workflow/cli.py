@@ -372,7 +372,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--cores", type=int, default=None, help="cores Snakemake may use in total (profile default: 2)")
     p.add_argument("--jobs", type=int, default=None, help="most jobs at a time (default: as many as cores allow)")
     p.add_argument("--threads-per-job", type=int, default=None,
-                   help="engine threads per solve job (default: 2 on this machine, 1 on one core)")
+                   help="engine threads per solve job (default 1: the cores run cases side by side)")
     p.add_argument("--profile", default="local",
                    help="Snakemake profile: a name in workflow/profiles/ (local, ...) or a folder with config.yaml")
     # cluster site settings (workflow/README_cluster.md); they apply to every job sent to the scheduler

@@ -105,9 +105,36 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
     previous = previous_plan(layout)
     written = 0
     for d in dicts:
-        written += write_if_changed(layout.case_dir(d["case_id"]) / "case.json", json_text(d))
+        written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
     write_plan(layout, study.name, entries)
     return Prepared(study, layout, entries, previous, written)
+
+
+#: case.json fields that describe the case but are not part of its identity
+DESCRIPTIVE_KEYS = ("label", "study", "parameters")
+
+
+def write_case_json(path: Path, case: dict) -> bool:
+    """Write ``case.json`` if its content changed; True if written.
+
+    When only descriptive fields changed (label, study name, parameter names: the same case reached
+    through a re-written sweep), the file is updated but keeps its modification time, because
+    nothing that alters results changed and Snakemake must not rerun the case.
+    """
+    text = json_text(case)
+    try:
+        st = path.stat()
+        old = json.loads(path.read_bytes())
+    except (FileNotFoundError, ValueError):
+        return write_if_changed(path, text)
+    if json_text(old) == text:
+        return False
+    same = {k: v for k, v in old.items() if k not in DESCRIPTIVE_KEYS} == \
+        {k: v for k, v in json.loads(text).items() if k not in DESCRIPTIVE_KEYS}
+    write_if_changed(path, text)
+    if same:
+        os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
+    return True
 
 
 # -- the state of a case ----------------------------------------------------------------------------------
@@ -334,8 +361,12 @@ class SnakefileContext:
 
 
 def default_threads_per_job() -> int:
-    """One engine thread per core of this machine, at most 2 (two small cases in parallel scale better)."""
-    return max(1, min(2, os.cpu_count() or 1))
+    """Engine threads per solve job by default: 1, so that on a 2-core machine two cases run side by side.
+
+    Small and medium FDTD cases scale better as parallel single-thread jobs than as one job on two
+    threads (the engine is memory-bound); ``--threads-per-job`` sets it for large cases.
+    """
+    return 1
 
 
 def snakefile_context(config: dict, *, main_process: bool, configfiles: list | None = None) -> SnakefileContext:

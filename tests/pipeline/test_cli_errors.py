@@ -1,0 +1,73 @@
+"""Unusable study files through the command line: one-line error, exit code 2, nothing written."""
+from pathlib import Path
+
+import pytest
+import yaml
+
+from bodysweep.workflow import cli
+
+TINY = Path(__file__).parent / "data" / "tiny.yaml"
+
+
+def _study(tmp_path, edit):
+    d = yaml.safe_load(TINY.read_text())
+    edit(d)
+    p = tmp_path / "study.yaml"
+    p.write_text(yaml.safe_dump(d))
+    return p
+
+
+def _unknown_key(d):
+    d["scene"]["implant"]["depht_mm"] = 5  # misspelt key
+
+
+def _bad_value(d):
+    d["frequencies_MHz"] = [-5]  # schema: frequencies from 10 to 6000 MHz
+
+
+def _bad_sweep_path(d):
+    d["sweep"]["parameters"]["depth"] = "scene.implant.no_such_key_mm"
+
+
+@pytest.mark.parametrize("command", ["check", "plan", "run"])
+@pytest.mark.parametrize("edit", [_unknown_key, _bad_value, _bad_sweep_path])
+def test_unusable_study_exits_2_and_writes_nothing(tmp_path, monkeypatch, capsys, command, edit):
+    study = _study(tmp_path, edit)
+    work = tmp_path / "work"
+    work.mkdir()
+    monkeypatch.chdir(work)
+    rc = cli.main([command, str(study)])
+    err = capsys.readouterr().err
+    assert rc == 2
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert len(lines) == 1 and lines[0].startswith("bodysweep: error:")
+    assert list(work.iterdir()) == []  # nothing written, not even results/
+
+
+def test_missing_study_file(tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    assert cli.main(["check", str(tmp_path / "nope.yaml")]) == 2
+    assert "no such study file" in capsys.readouterr().err
+
+
+def test_yaml_syntax_error(tmp_path, monkeypatch, capsys):
+    p = tmp_path / "s.yaml"
+    p.write_text("study: x\nfrequencies_MHz: [403\n")
+    monkeypatch.chdir(tmp_path)
+    assert cli.main(["check", str(p)]) == 2
+    assert list(tmp_path.iterdir()) == [p]
+
+
+def test_check_counts_cases(tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    assert cli.main(["check", str(TINY)]) == 0
+    assert "2 cases" in capsys.readouterr().out
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("command", ["check", "plan", "run", "collect", "preview", "report", "verify"])
+def test_every_command_has_help(command, capsys):
+    with pytest.raises(SystemExit) as e:
+        cli.main([command, "--help"])
+    assert e.value.code == 0
+    assert "study" in capsys.readouterr().out
