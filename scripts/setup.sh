@@ -187,7 +187,9 @@ else
   APTDIR="$ENGINE/apt-bookworm"
   LIBDIR="$PREFIX/usr/lib/$TRIPLET"
   want_marker="packages: ${BOOKWORM_DEBS[*]}"
-  if [[ ! -f "$MARKER" ]] || [[ "$(head -1 "$MARKER")" != "$want_marker" ]] || ! python_modules_ok; then
+  # rebuild when never completed, made for another package list, or damaged since (ldd fails)
+  if [[ ! -f "$MARKER" ]] || [[ "$(head -1 "$MARKER")" != "$want_marker" ]] || ! python_modules_ok \
+     || ! check_linkage "$ENGINE"/py/*/*.so >/dev/null 2>&1; then
     t0=$SECONDS
     say "fetching bookworm openEMS .debs through a private apt configuration ($APTDIR)"
     rm -rf "$APTDIR" "$ENGINE/debs13" "$PREFIX"
