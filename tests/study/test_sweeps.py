@@ -98,11 +98,13 @@ def test_choice_replaces_a_whole_subtree_and_nested_path_follows_it():
     loop = {"type": "loop", "shape": "circular", "radius_mm": 12, "trace_width_mm": 1.5, "feed_gap_mm": 1,
             "turns": 1, "normal": "z", "position_mm": [0, 0], "standoff_mm": 3, "conductor": "pec"}
     base_ext = _minimal()["scene"]["external"]
+    rod = {"type": "rod_pair", "anchor": "implant", "offset_mm": [0, 0, 4.5], "azimuth_deg": 0,
+           "rod_length_mm": 8, "gap_mm": 2, "radius_mm": 0.4, "conductor": "pec"}
     params = {"ext": {"path": "scene.external", "options": {"dipole": base_ext, "loop": loop}},
               "standoff": "scene.external.standoff_mm",
-              "rods": {"path": "scene.concentrators", "options": {"none": [], "two": [{"type": "rod_pair"}] * 2}}}
+              "rods": {"path": "scene.concentrators", "options": {"none": [], "two": [rod, dict(rod, azimuth_deg=90)]}}}
     cases = expand(load_study(_study(params, [{"grid": {"ext": ["dipole", "loop"], "rods": ["none", "two"]}},
-                                              {"grid": {"standoff": [2, 4]}}])), check_scene=False)
+                                              {"grid": {"standoff": [2, 4]}}])))
     assert len(cases) == 8
     c = next(c for c in cases if c.parameters["scene.external"] == "loop" and c.parameters["scene.concentrators"] == "two")
     assert c.scene["external"]["type"] == "loop" and c.scene["external"]["radius_m"] == 12e-3
@@ -196,13 +198,13 @@ def test_mapping_input_is_not_modified():
     assert d == before
 
 
-def test_scene_builder_errors_surface_at_expansion_with_the_case_label():
+def test_scene_schema_errors_surface_at_expansion_with_the_case_label():
     pytest.importorskip("bodysweep.geometry.scene")
     d = _study({"ph": "scene.phantom.type"}, [{"grid": {"ph": ["layered_slab", "layered_blob"]}}])
     with pytest.raises(StudyError) as info:
         expand(load_study(d))
     err = info.value
-    assert err.key_path == "scene"
+    assert err.key_path == "scene.phantom.type"  # the scene schema names the key
     assert "f=403MHz ph=layered_blob" in str(err) and "\n" not in str(err)
     # the study layer alone (scene builder off) accepts it
     assert len(expand(load_study(d), check_scene=False)) == 2
@@ -213,3 +215,15 @@ def test_scene_is_the_builders_resolved_form():
     c = expand(load_study(_minimal()))[0]
     # the scene builder's own round trip is the reference for "fully resolved"
     assert scene_mod.Scene.from_dict(c.scene).to_dict() == c.scene
+
+
+def test_scene_builder_refusal_surfaces_with_the_case_label():
+    pytest.importorskip("bodysweep.geometry.scene")
+    # a tissue name is free text for the schema (user materials may be declared); the builder refuses it
+    d = _study({"t": "scene.phantom.layers.0.tissue"}, [{"grid": {"t": ["skin_dry", "unobtainium"]}}])
+    with pytest.raises(StudyError) as info:
+        expand(load_study(d))
+    assert info.value.key_path == "scene"
+    assert "in case f=403MHz t=unobtainium: phantom layer 0" in str(info.value)
+    assert "\n" not in str(info.value)
+

@@ -12,8 +12,9 @@ from bodysweep.geometry.units import from_edge_units
 from .edge_checks import check_edge_values
 from .errors import StudyError, join_path
 from .expressions import evaluate
-from .identity import code_versions, content2case_id
-from .paths import get_path, has_path, parent_exists, path2parts, set_path
+from .identity import canonical_json, code_versions, content2case_id
+from .paths import has_path, parent_exists, path2parts, set_path
+from .schema import validate_case_scene
 from .study import Study, base_value, declared_solver_key
 
 
@@ -174,8 +175,9 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     """All cases of a study, in a fixed order: frequencies outermost, then the product of the blocks.
 
     Within the product the first block varies slowest; within a block the rows keep their order.
-    Each case's scene is checked with ``bodysweep.geometry.scene.Scene.from_dict`` and its solver
-    section with ``settings_from_dict`` when those exist (``check_scene=False`` skips the scene builder),
+    Each case's edge-unit scene is validated against the scene schema (when a sweep or derived value
+    changed it), then checked with ``bodysweep.geometry.scene.Scene.from_dict``, and its solver section
+    with ``settings_from_dict``, when those exist (``check_scene=False`` skips both scene checks),
     so geometry errors surface here with the case label. Cases that resolve to the same content
     (same id) are kept once, at their first position.
 
@@ -195,6 +197,8 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     combos = [tuple(v for row in combo for v in row) for combo in combos]
     cases: list[Case] = []
     seen: set[str] = set()
+    validated: set[str] = set()  # edge-unit scenes already checked against the scene schema
+    varies = bool(study.blocks or study.derived)  # otherwise the base scene was validated at load time
     for f_Hz in study.frequencies_Hz:
         f_MHz = f_Hz / 1e6
         for row in combos:
@@ -202,6 +206,11 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             label = case_label(f_MHz, items)
             doc, parameters = _apply(study, names, row, f_MHz, label)
             check_edge_values(doc, "", f"in case {label}")
+            if varies and check_scene:
+                key = canonical_json(doc["scene"])
+                if key not in validated:
+                    validate_case_scene(doc["scene"], f"in case {label}")
+                    validated.add(key)
             scene_si = from_edge_units(doc["scene"])
             solver_si = from_edge_units(doc["solver"])
             solver_si["excite_ports"] = list(excite)

@@ -176,3 +176,25 @@ def solver_key_defaults() -> dict[str, Any]:
     """
     schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json") or {}
     return {k: v.get("default") for k, v in schema.get("properties", {}).items() if isinstance(v, dict)}
+
+
+@functools.lru_cache(maxsize=1)
+def scene_validator() -> jsonschema.Draft202012Validator:
+    """A cached validator of the scene section alone (edge units), for each case after its sweep."""
+    registry = referencing.Registry().with_resources(_resources())
+    return jsonschema.Draft202012Validator({"$ref": SCENE_SCHEMA_URI}, registry=registry)
+
+
+def validate_case_scene(scene: Any, context: str) -> None:
+    """Validate one case's edge-unit scene; the error names the key under ``scene`` and the case.
+
+    Raises
+    ------
+    StudyError
+        Key path ``scene.<...>``, problem followed by ``context`` (e.g. ``in case f=403MHz depth=5mm``).
+    """
+    errors = list(scene_validator().iter_errors(scene))
+    if errors:
+        err = error2study_error(best_match(errors), prefix="scene")
+        raise StudyError(err.key_path, f"{err.problem} {context}", err.value, err.allowed,
+                         show_value=err.show_value)
