@@ -1,0 +1,641 @@
+"""Automatic rectilinear FDTD mesh for one scene at one frequency (pure numpy, no solver import).
+
+How the lines come about, per axis
+----------------------------------
+1. **Domain.** The structures (every primitive and port) get an air margin of
+   ``air_margin_wavelengths * lambda0``; then ``pml_cells`` cells of absorbing layer are added
+   outside (none for Mur). The inner faces of the absorbing layer are :attr:`MeshPlan.interior_bounds`.
+   A phantom that reaches further than :data:`BODY_REACH_WAVELENGTHS` free-space wavelengths beyond
+   the antennas, implant and ports (a "semi-infinite" slab) is clipped: on that side the interior
+   bound is placed at that reach and the tissue must *end* there, with air inside the PML
+   (lossy tissue inside a PML keeps the energy from decaying, so the run would not end).
+2. **Fixed lines** (each with a priority and a reason): interior bounds, port gap ends, thin wires
+   and zero-thickness sheets (openEMS puts 0-thickness metal on mesh lines), conductor edges,
+   fixed-line mesh hints, and the faces of dielectric primitives (layer interfaces).
+3. **Merge.** Fixed lines closer than the merge threshold (``min_cell_m``, or a quarter of the
+   finest requested cell) are merged, keeping the more important line.
+4. **Size limits** (upper bounds on the cell size inside an interval): ``lambda / cells_per_wavelength``
+   in each material's bounding box (air elsewhere), layer thickness / ``min_cells_per_layer``,
+   gap / ``port_cells`` inside each port gap and at the edges of that antenna's conductors,
+   region hints. Their lower envelope, made to grow no faster than the grading allows, is the
+   target size field.
+5. **Fill.** Between neighbouring fixed lines, lines are placed so that the cells equidistribute
+   the target size field (cells never larger than it), then any neighbour pair still above
+   ``max_growth_ratio`` is repaired by inserting lines on the larger side.
+
+Everything is in metres.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from bodysweep.geometry.model import SceneModel
+from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Wire
+
+from .settings import SolverSettings
+
+C0 = 299_792_458.0  # speed of light in vacuum, m/s (SI definition)
+
+#: a phantom is clipped where it reaches further than this (free-space wavelengths) beyond the
+#: structures that are not tissue (antennas, implant, ports)
+BODY_REACH_WAVELENGTHS = 0.5
+#: check_mesh refuses a cell smaller than this fraction of the smallest geometric feature
+SLIVER_FRACTION = 0.1
+
+# fixed-line priorities (higher survives a merge)
+P_BOUND, P_PORT, P_THIN, P_CONDUCTOR, P_HINT, P_DIELECTRIC = 10, 6, 5, 4, 3, 2
+
+#: size-field grading slope, as a fraction of ln(max_growth_ratio) (headroom for rounding)
+_GRADING_SLOPE_FRACTION = 0.5
+
+
+def _short_gap_cells(ratio: float) -> int:
+    """Gaps between fixed lines needing at most this many cells get uniform cells (tighter ratio: more)."""
+    return max(3, int(np.ceil(2.0 / np.log(ratio))))
+
+
+class MeshRefused(ValueError):
+    """The mesh is unusable for this scene (e.g. a sliver cell that would set a tiny timestep)."""
+
+
+@dataclass(frozen=True)
+class MeshPlan:
+    """The mesh lines of one case and why they exist.
+
+    Attributes
+    ----------
+    lines_x, lines_y, lines_z : ndarray, shape (n_x,), (n_y,), (n_z,)
+        Strictly increasing mesh line coordinates in metres, absorbing-layer cells included.
+    interior_bounds : ((x0, y0, z0), (x1, y1, z1))
+        Inner faces of the absorbing boundary (equal to the domain faces for Mur). Tissue primitives
+        must be clipped to this box (see :meth:`clip_to_interior`).
+    absorbing_cells : int
+        Cells of absorbing layer at each of the six faces (``pml_cells`` for PML, 0 for Mur).
+    merge_threshold_m : float
+        Fixed lines closer than this were merged.
+    fixed : dict of str to tuple of (float, str)
+        Per axis, the fixed lines that survived merging with their reason.
+    notes : tuple of str
+        Human-readable notes: size limits, merges, clipping of the phantom.
+    clipped_body : tuple of str
+        ``"x-"``, ``"z+"``, ... for each side where the phantom was clipped at the interior bound.
+    """
+
+    lines_x: np.ndarray
+    lines_y: np.ndarray
+    lines_z: np.ndarray
+    interior_bounds: tuple[tuple[float, float, float], tuple[float, float, float]]
+    absorbing_cells: int
+    merge_threshold_m: float
+    fixed: dict[str, tuple[tuple[float, str], ...]] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+    clipped_body: tuple[str, ...] = ()
+
+    def lines(self, axis: str | int) -> np.ndarray:
+        """Mesh lines along ``axis`` (``'x'|'y'|'z'`` or 0, 1, 2), shape ``(n,)``."""
+        i = AXES.index(axis) if isinstance(axis, str) else int(axis)
+        return (self.lines_x, self.lines_y, self.lines_z)[i]
+
+    @property
+    def shape_cells(self) -> tuple[int, int, int]:
+        """Number of cells along x, y, z."""
+        return tuple(len(self.lines(i)) - 1 for i in range(3))  # type: ignore[return-value]
+
+    @property
+    def n_cells(self) -> int:
+        nx, ny, nz = self.shape_cells
+        return nx * ny * nz
+
+    @property
+    def smallest_cell(self) -> tuple[float, float, float]:
+        """Smallest cell size along x, y, z in metres."""
+        return tuple(float(np.diff(self.lines(i)).min()) for i in range(3))  # type: ignore[return-value]
+
+    @property
+    def largest_cell(self) -> tuple[float, float, float]:
+        """Largest cell size along x, y, z in metres."""
+        return tuple(float(np.diff(self.lines(i)).max()) for i in range(3))  # type: ignore[return-value]
+
+    def max_neighbour_ratio(self, axis: str | int) -> float:
+        """Largest size ratio of neighbouring cells along ``axis`` (1 for a uniform mesh)."""
+        h = np.diff(self.lines(axis))
+        if len(h) < 2:
+            return 1.0
+        return float(np.max(np.maximum(h[1:] / h[:-1], h[:-1] / h[1:])))
+
+    def clip_to_interior(self, lo, hi) -> tuple[tuple[float, ...], tuple[float, ...]] | None:
+        """Clip an axis-aligned box ``(lo, hi)`` (metres) to the interior; ``None`` if nothing is left."""
+        ilo, ihi = self.interior_bounds
+        clo = tuple(max(float(a), b) for a, b in zip(lo, ilo))
+        chi = tuple(min(float(a), b) for a, b in zip(hi, ihi))
+        if any(a >= b for a, b in zip(clo, chi)):
+            return None
+        return clo, chi
+
+    def to_dict(self) -> dict:
+        return {
+            "lines_x": self.lines_x.tolist(), "lines_y": self.lines_y.tolist(), "lines_z": self.lines_z.tolist(),
+            "interior_bounds": [list(self.interior_bounds[0]), list(self.interior_bounds[1])],
+            "absorbing_cells": self.absorbing_cells, "merge_threshold_m": self.merge_threshold_m,
+            "fixed": {a: [list(t) for t in v] for a, v in self.fixed.items()},
+            "notes": list(self.notes), "clipped_body": list(self.clipped_body),
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "MeshPlan":
+        return cls(
+            lines_x=np.asarray(d["lines_x"], float), lines_y=np.asarray(d["lines_y"], float),
+            lines_z=np.asarray(d["lines_z"], float),
+            interior_bounds=(tuple(d["interior_bounds"][0]), tuple(d["interior_bounds"][1])),  # type: ignore[arg-type]
+            absorbing_cells=int(d["absorbing_cells"]), merge_threshold_m=float(d["merge_threshold_m"]),
+            fixed={a: tuple((float(p), str(r)) for p, r in v) for a, v in d.get("fixed", {}).items()},
+            notes=tuple(d.get("notes", ())), clipped_body=tuple(d.get("clipped_body", ())),
+        )
+
+
+# ----------------------------------------------------------------------------------------------
+# pure helpers over numpy arrays
+# ----------------------------------------------------------------------------------------------
+def wavelength_in_material(frequency_Hz: float, eps_r: float) -> float:
+    """Wavelength ``c0 / (f sqrt(eps_r))`` in metres (lossless approximation)."""
+    return C0 / (frequency_Hz * np.sqrt(eps_r))
+
+
+def size_envelope(x: np.ndarray, limits: np.ndarray, slope: float) -> np.ndarray:
+    """Largest allowed cell size at ``x``: the lower envelope of interval limits, graded by ``slope``.
+
+    Parameters
+    ----------
+    x : ndarray, shape (m,)
+        Positions (metres).
+    limits : ndarray, shape (k, 3)
+        Rows ``(lo, hi, h_max)``: cells inside ``[lo, hi]`` are at most ``h_max``.
+    slope : float
+        Outside an interval the limit relaxes as ``h_max + slope * distance``.
+
+    Returns
+    -------
+    ndarray, shape (m,)
+    """
+    x = np.asarray(x, float)[:, None]
+    lo, hi, h = limits[:, 0][None, :], limits[:, 1][None, :], limits[:, 2][None, :]
+    dist = np.maximum(0.0, np.maximum(lo - x, x - hi))
+    return np.min(h + slope * dist, axis=1)
+
+
+def equidistribute(a: float, b: float, limits: np.ndarray, slope: float) -> np.ndarray:
+    """Interior lines between fixed lines ``a < b`` so that no cell exceeds the size envelope.
+
+    The number of cells is the integral of ``1 / s(x)`` rounded up; lines sit at equal steps of that
+    integral, so cells follow the shape of the size field ``s``. Returns shape ``(n - 1,)``.
+    """
+    span = b - a
+    s_min = float(size_envelope(np.array([a, b]), limits, slope).min())
+    s_min = min(s_min, float(limits[:, 2].min()) + slope * span)
+    m = int(np.clip(np.ceil(8 * span / max(s_min, 1e-12)), 17, 20001))
+    xs = np.linspace(a, b, m)
+    w = 1.0 / size_envelope(xs, limits, slope)
+    dx = np.diff(xs)
+
+    def cumulative(v):
+        return np.concatenate([[0.0], np.cumsum(0.5 * (v[1:] + v[:-1]) * dx)])
+
+    phi = cumulative(w)
+    n = max(1, int(np.ceil(phi[-1] - 1e-9)))
+    if n == 1:
+        return np.empty(0)
+    # the extra cells from rounding up go to the middle of the gap (a bump vanishing at both ends),
+    # so the cells next to the fixed lines keep the size the envelope gives there, as the
+    # neighbouring gap's cells do
+    bump = np.sin(np.pi * (xs - a) / span) ** 2 * w
+    extra = n - phi[-1]
+    pb = cumulative(bump)
+    if extra > 0 and pb[-1] > 0:
+        phi = phi + extra / pb[-1] * pb
+    targets = np.arange(1, n) * phi[-1] / n
+    return np.interp(targets, phi, xs)
+
+
+def repair_grading(lines: np.ndarray, ratio: float, fixed: np.ndarray | None = None,
+                   max_iter: int = 20_000) -> np.ndarray:
+    """Re-space cells until no two neighbours differ by more than ``ratio``; ``fixed`` lines never move.
+
+    For each violating pair (finest first) the cells on the side of the larger one are replaced,
+    over the shortest window that works, by a sequence grading geometrically from the small cell
+    to the cell after the window. Windows never cross a fixed line.
+
+    Parameters
+    ----------
+    lines : ndarray, shape (n,)
+        Strictly increasing positions (fixed lines included).
+    ratio : float
+        Allowed neighbour ratio (> 1).
+    fixed : ndarray, shape (k,), optional
+        Positions that must stay (default: the two end lines).
+
+    Returns
+    -------
+    ndarray, shape (n',)
+    """
+    x = np.asarray(lines, float).copy()
+    fx = np.asarray([x[0], x[-1]] if fixed is None else fixed, float)
+    tol = 1.0 + 1e-9
+    for _ in range(max_iter):
+        h = np.diff(x)
+        if len(h) < 2:
+            return x
+        up = h[1:] / h[:-1]
+        bad = np.nonzero((up > ratio * tol) | (1.0 / up > ratio * tol))[0]
+        if len(bad) == 0:
+            return x
+        small = np.minimum(h[bad], h[bad + 1])
+        i = int(bad[np.argmin(small)])
+        s_i, j = (i, i + 1) if h[i + 1] > h[i] else (i + 1, i)  # small cell, first cell of the window
+        d = j - s_i
+        is_fixed = np.isin(x, fx) | np.isclose(x[:, None], fx[None, :], rtol=0, atol=1e-15).any(axis=1)
+        done = False
+        for m in range(1, len(h)):
+            last = j + (m - 1) * d
+            if not 0 <= last < len(h):
+                break
+            window = [j + k * d for k in range(m)]
+            total = float(h[window].sum())
+            nxt = last + d
+            h_to = float(h[nxt]) if 0 <= nxt < len(h) else None
+            sizes = _graded_split(total, float(h[s_i]), h_to, ratio)
+            if sizes is not None:
+                face = x[j] if d > 0 else x[j + 1]
+                inner = face + d * np.cumsum(sizes)[:-1]
+                lo_i, hi_i = (j, last + 1) if d > 0 else (last, j + 1)
+                x = np.sort(np.concatenate([x[: lo_i + 1], inner, x[hi_i:]]))
+                done = True
+                break
+            # the window may not swallow a fixed line
+            edge = last + 1 if d > 0 else last
+            if is_fixed[edge]:
+                break
+        if not done:  # fall back: halve the larger cell, the next passes grade around it
+            x = np.sort(np.append(x, 0.5 * (x[j] + x[j + 1])))
+    raise RuntimeError("mesh grading repair did not converge")  # pragma: no cover
+
+
+def _graded_split(total: float, h_from: float, h_to: float | None, ratio: float) -> np.ndarray | None:
+    """Sizes, shape (n,), summing to ``total``, grading from a cell ``h_from`` to a cell ``h_to``.
+
+    The sizes interpolate geometrically between the two neighbours (a missing ``h_to`` leaves the
+    far end free); the fewest cells whose ratios to each other and to both neighbours stay within
+    ``ratio`` are used. ``None`` if no such sequence exists.
+    """
+    for n in range(1, 2000):
+        if h_to is None:
+            rho = min(ratio, (total / h_from) ** (1.0 / n)) if n > 1 else ratio
+            c = h_from * rho ** np.arange(1, n + 1)
+        else:
+            rho = (h_to / h_from) ** (1.0 / (n + 1))
+            c = h_from * rho ** np.arange(1, n + 1)
+        f = total / c.sum()
+        c = c * f
+        inner = np.all(np.maximum(c[1:] / c[:-1], c[:-1] / c[1:]) <= ratio * (1 + 1e-12)) if n > 1 else True
+        ends = 1 / ratio <= c[0] / h_from <= ratio and (h_to is None or 1 / ratio <= h_to / c[-1] <= ratio)
+        if inner and ends:
+            return c
+        if c.max() * ratio < h_from and (h_to is None or c.max() * ratio < h_to):
+            break  # more cells only make them smaller
+    return None
+
+
+def merge_fixed_lines(cands: list[tuple[float, int, str]], threshold: float) -> list[tuple[float, int, str]]:
+    """Merge fixed lines closer than ``threshold``: the lower priority goes (ties: the later one).
+
+    ``cands`` holds ``(position, priority, reason)``. Returns the survivors sorted by position.
+    Two top-priority lines closer than the threshold raise :class:`MeshRefused`.
+    """
+    pts = sorted(cands)
+    # exact duplicates first: keep the highest priority, join reasons
+    merged: list[list] = []
+    for p, pr, why in pts:
+        if merged and abs(p - merged[-1][0]) <= 1e-12:
+            if pr > merged[-1][1]:
+                merged[-1][1], merged[-1][2] = pr, why
+            continue
+        merged.append([p, pr, why])
+    while len(merged) > 1:
+        pos = np.array([m[0] for m in merged])
+        gaps = np.diff(pos)
+        j = int(np.argmin(gaps))
+        if gaps[j] >= threshold:
+            break
+        a, b = merged[j], merged[j + 1]
+        if a[1] == b[1] == P_BOUND:
+            raise MeshRefused(f"two domain bounds {a[0]*1e3:.4f} mm and {b[0]*1e3:.4f} mm are closer than the "
+                              f"merge threshold {threshold*1e3:.4f} mm")
+        drop = j + 1 if a[1] >= b[1] else j
+        keep = merged[j] if drop == j + 1 else merged[j + 1]
+        gone = merged[drop]
+        if gone[1] == P_PORT and keep[1] == P_PORT:
+            raise MeshRefused(f"port lines at {a[0]*1e3:.4f} mm ({a[2]}) and {b[0]*1e3:.4f} mm ({b[2]}) are closer "
+                              f"than the merge threshold {threshold*1e3:.4f} mm; lower min_cell_m")
+        del merged[drop]
+    return [tuple(m) for m in merged]  # type: ignore[misc]
+
+
+# ----------------------------------------------------------------------------------------------
+# scene -> per-axis requirements
+# ----------------------------------------------------------------------------------------------
+def _is_metal(model: SceneModel, material: str) -> bool:
+    return model.material(material).kind in ("pec", "conductor")
+
+
+def _is_tissue(model: SceneModel, material: str) -> bool:
+    return model.material(material).is_tissue
+
+
+def _port_fine_sizes(model: SceneModel, settings: SolverSettings) -> list[tuple[np.ndarray, float]]:
+    """``(centre, fine cell size)`` for each port: gap length / port_cells."""
+    out = []
+    for p in model.ports:
+        i = AXES.index(p.axis)
+        gap = abs(p.stop[i] - p.start[i])
+        out.append((np.asarray(p.centre), gap / settings.port_cells))
+    return out
+
+
+def _nearest_fine(lo, hi, fines: list[tuple[np.ndarray, float]], default: float) -> float:
+    if not fines:
+        return default
+    lo, hi = np.asarray(lo), np.asarray(hi)
+    best, best_d = default, np.inf
+    for c, h in fines:
+        d = float(np.linalg.norm(np.maximum(0.0, np.maximum(lo - c, c - hi))))
+        if d < best_d:
+            best, best_d = h, d
+    return best
+
+
+def _interior_bounds(model: SceneModel, settings: SolverSettings):
+    """Interior box and the sides where the phantom is clipped."""
+    lam0 = C0 / model.frequency_Hz
+    margin = settings.air_margin_wavelengths * lam0
+    reach = BODY_REACH_WAVELENGTHS * lam0
+    full_lo, full_hi = (np.asarray(v, float) for v in model.bounds())
+    core = [p.bounds() for p in model.primitives if not _is_tissue(model, p.material)]
+    core += [p.bounds() for p in model.ports]
+    if core:
+        core_lo = np.min([c[0] for c in core], axis=0)
+        core_hi = np.max([c[1] for c in core], axis=0)
+    else:
+        core_lo, core_hi = full_lo, full_hi
+    lo, hi = full_lo - margin, full_hi + margin
+    clipped, notes = [], []
+    for i, a in enumerate(AXES):
+        if full_lo[i] < core_lo[i] - reach:
+            lo[i] = core_lo[i] - reach
+            clipped.append(f"{a}-")
+        if full_hi[i] > core_hi[i] + reach:
+            hi[i] = core_hi[i] + reach
+            clipped.append(f"{a}+")
+    for side in clipped:
+        i = AXES.index(side[0])
+        bound = lo[i] if side[1] == "-" else hi[i]
+        notes.append(f"phantom clipped at {side[0]} = {bound*1e3:.2f} mm (reaches more than "
+                     f"{BODY_REACH_WAVELENGTHS} wavelengths beyond the antennas); tissue must end there")
+    return lo, hi, tuple(clipped), notes
+
+
+def _requirements(model: SceneModel, settings: SolverSettings, lo: np.ndarray, hi: np.ndarray):
+    """Per axis: fixed-line candidates ``[(pos, prio, reason)]`` and size limits ``[(lo, hi, h, reason)]``."""
+    n = settings.cells_per_wavelength
+    f = model.frequency_Hz
+    h_air = wavelength_in_material(f, 1.0) / n
+    fines = _port_fine_sizes(model, settings)
+    fixed = {a: [] for a in AXES}
+    limits = {a: [] for a in AXES}
+    for i, a in enumerate(AXES):
+        fixed[a] += [(float(lo[i]), P_BOUND, "interior bound (absorbing boundary inner face)"),
+                     (float(hi[i]), P_BOUND, "interior bound (absorbing boundary inner face)")]
+        limits[a].append((float(lo[i]), float(hi[i]), h_air, "air lambda/N"))
+
+    def inside(i, v):
+        return lo[i] < v < hi[i]
+
+    def add_line(i, v, prio, why):
+        if inside(i, v):
+            fixed[AXES[i]].append((float(v), prio, why))
+
+    def add_limit(i, a_, b_, h, why):
+        a_, b_ = max(a_, lo[i]), min(b_, hi[i])
+        if b_ >= a_:
+            limits[AXES[i]].append((float(a_), float(b_), float(h), why))
+
+    for p in model.primitives:
+        plo, phi = p.bounds()
+        mat = model.material(p.material)
+        metal = mat.kind in ("pec", "conductor")
+        if metal:
+            fine = _nearest_fine(plo, phi, fines, h_air)
+            thin_axes: set[int] = set()
+            if isinstance(p, Wire) and p.radius == 0.0:
+                for q0, q1 in zip(p.points[:-1], p.points[1:]):
+                    for i in range(3):
+                        if q0[i] == q1[i]:
+                            thin_axes.add(i)
+                            add_line(i, q0[i], P_THIN, f"thin wire {p.name}")
+                            add_limit(i, q0[i], q0[i], fine, f"next to thin wire {p.name}")
+                        else:
+                            for v in (q0[i], q1[i]):
+                                add_line(i, v, P_CONDUCTOR, f"wire {p.name} end/bend")
+                                add_limit(i, v, v, fine, f"wire {p.name} end")
+                continue
+            if isinstance(p, Polygon):
+                nrm = AXES.index(p.normal)
+                if p.thickness == 0.0:
+                    add_line(nrm, p.elevation, P_THIN, f"sheet {p.name}")
+                    add_limit(nrm, p.elevation, p.elevation, fine, f"next to sheet {p.name}")
+                    thin_axes.add(nrm)
+                ax0, ax1 = p.plane_axes()
+                pts = list(p.points) + [p.points[0]]
+                for (u0, v0), (u1, v1) in zip(pts[:-1], pts[1:]):
+                    if u0 == u1:  # edge parallel to the second plane axis -> a line on the first
+                        add_line(ax0, u0, P_CONDUCTOR, f"sheet {p.name} edge")
+                        add_limit(ax0, u0, u0, fine, f"sheet {p.name} edge")
+                    if v0 == v1:
+                        add_line(ax1, v0, P_CONDUCTOR, f"sheet {p.name} edge")
+                        add_limit(ax1, v0, v0, fine, f"sheet {p.name} edge")
+            for i in range(3):
+                if i in thin_axes:
+                    continue
+                for v in (plo[i], phi[i]):
+                    add_line(i, v, P_CONDUCTOR, f"conductor {p.name} edge")
+                    add_limit(i, v, v, fine, f"conductor {p.name} edge")
+        else:
+            h_mat = wavelength_in_material(f, mat.eps_r) / n
+            for i in range(3):
+                ext = phi[i] - plo[i]
+                add_limit(i, plo[i], phi[i], h_mat, f"{mat.name} lambda/N ({p.name})")
+                if ext > 0:
+                    add_limit(i, plo[i], phi[i], ext / settings.min_cells_per_layer,
+                              f"{p.name} thickness / min_cells_per_layer")
+                for v in (plo[i], phi[i]):
+                    add_line(i, v, P_DIELECTRIC, f"{p.name} face")
+    for port in model.ports:
+        k = AXES.index(port.axis)
+        plo, phi = port.bounds()
+        gap = phi[k] - plo[k]
+        fine = gap / settings.port_cells
+        for i in range(3):
+            if i == k:
+                for v in (plo[i], phi[i]):
+                    add_line(i, v, P_PORT, f"port {port.number} gap end")
+                add_limit(i, plo[i], phi[i], fine, f"port {port.number} gap / port_cells")
+            else:
+                for v in sorted({plo[i], phi[i]}):
+                    add_line(i, v, P_PORT, f"port {port.number} feed")
+                add_limit(i, plo[i], phi[i], fine, f"port {port.number} feed")
+    for hint in model.hints:
+        i = AXES.index(hint.axis)
+        why = hint.reason or "mesh hint"
+        if hint.lo == hint.hi:
+            add_line(i, hint.lo, P_HINT, why)
+            if hint.max_cell > 0:
+                add_limit(i, hint.lo, hint.lo, hint.max_cell, why)
+        elif hint.max_cell > 0:
+            add_limit(i, min(hint.lo, hint.hi), max(hint.lo, hint.hi), hint.max_cell, why)
+    return fixed, limits
+
+
+def cells_needed(a: float, b: float, limits: np.ndarray, slope: float) -> float:
+    """Integral of ``1 / s(x)`` over ``[a, b]`` for the size envelope ``s`` (a fractional cell count)."""
+    span = b - a
+    s_min = min(float(size_envelope(np.array([a, b]), limits, slope).min()),
+                float(limits[:, 2].min()) + slope * span)
+    m = int(np.clip(np.ceil(8 * span / max(s_min, 1e-12)), 17, 20001))
+    xs = np.linspace(a, b, m)
+    w = 1.0 / size_envelope(xs, limits, slope)
+    return float(np.sum(0.5 * (w[1:] + w[:-1]) * np.diff(xs)))
+
+
+def _axis_lines(fixed: list[tuple[float, int, str]], limits: np.ndarray, ratio: float) -> np.ndarray:
+    pos = np.array([p for p, _, _ in fixed])
+    slope = _GRADING_SLOPE_FRACTION * np.log(ratio)
+    gaps = np.diff(pos)
+    # each gap between fixed lines is also a size limit, so its neighbourhood grades from it
+    lim = np.vstack([limits, np.column_stack([pos[:-1], pos[1:], gaps])])
+    # short gaps (few cells) cannot follow the size field after rounding the cell count up; give
+    # them uniform cells and make that size a limit too, so that the neighbours grade from it
+    cap = np.full(len(gaps), np.inf)
+    short = _short_gap_cells(ratio)
+    for _ in range(200):
+        changed = False
+        for k, (a, b) in enumerate(zip(pos[:-1], pos[1:])):
+            n = max(1, int(np.ceil(cells_needed(a, b, lim, slope) - 1e-9)))
+            if n <= short and gaps[k] / n < cap[k] * (1 - 1e-9):
+                cap[k] = gaps[k] / n
+                lim = np.vstack([lim, [a, b, cap[k]]])
+                changed = True
+        if not changed:
+            break
+    out = [pos[:1]]
+    for a, b in zip(pos[:-1], pos[1:]):
+        out.append(equidistribute(a, b, lim, slope))
+        out.append(np.array([b]))
+    lines = np.concatenate(out)
+    return repair_grading(lines, ratio, fixed=pos)
+
+
+def auto_mesh(model: SceneModel, settings: SolverSettings) -> MeshPlan:
+    """Mesh lines for ``model`` at ``model.frequency_Hz`` following ``settings``.
+
+    Parameters
+    ----------
+    model : SceneModel
+        The built scene (materials evaluated at the case frequency).
+    settings : SolverSettings
+
+    Returns
+    -------
+    MeshPlan
+        Lines per axis including the absorbing layer, interior bounds, merge threshold and reasons.
+
+    Raises
+    ------
+    MeshRefused
+        If ``min_cell_m`` would merge the two ends of a port gap.
+    """
+    if not model.primitives and not model.ports:
+        raise ValueError("auto_mesh: the scene has no primitives and no ports; nothing to mesh")
+    lo, hi, clipped, notes = _interior_bounds(model, settings)
+    fixed, limits = _requirements(model, settings, lo, hi)
+    finest = min(h for a in AXES for (_, _, h, _) in limits[a] if h > 0)
+    threshold = settings.min_cell_m if settings.min_cell_m is not None else 0.25 * finest
+    notes = list(notes) + [f"finest requested cell {finest*1e3:.4f} mm; merge threshold {threshold*1e3:.4f} mm"]
+    lines, kept = [], {}
+    pad = settings.absorbing_cells
+    for a in AXES:
+        survivors = merge_fixed_lines(fixed[a], threshold)
+        n_gone = len({round(p, 12) for p, _, _ in fixed[a]}) - len(survivors)
+        if n_gone:
+            notes.append(f"{a}: {n_gone} fixed line(s) merged into neighbours closer than {threshold*1e3:.4f} mm")
+        kept[a] = tuple((p, why) for p, _, why in survivors)
+        lim = np.array([(l0, l1, h) for (l0, l1, h, _) in limits[a]])
+        ln = _axis_lines(survivors, lim, settings.max_growth_ratio)
+        if pad:
+            h0, h1 = ln[1] - ln[0], ln[-1] - ln[-2]
+            ln = np.concatenate([ln[0] - h0 * np.arange(pad, 0, -1), ln, ln[-1] + h1 * np.arange(1, pad + 1)])
+        lines.append(ln)
+    return MeshPlan(lines_x=lines[0], lines_y=lines[1], lines_z=lines[2],
+                    interior_bounds=(tuple(map(float, lo)), tuple(map(float, hi))),  # type: ignore[arg-type]
+                    absorbing_cells=pad, merge_threshold_m=float(threshold), fixed=kept, notes=tuple(notes),
+                    clipped_body=clipped)
+
+
+# ----------------------------------------------------------------------------------------------
+# refusal of absurd meshes
+# ----------------------------------------------------------------------------------------------
+def smallest_feature(model: SceneModel) -> float:
+    """Smallest non-zero extent (metres) of any primitive or port gap along any axis."""
+    sizes = []
+    for item in list(model.primitives) + list(model.ports):
+        blo, bhi = item.bounds()
+        sizes += [b - a for a, b in zip(blo, bhi) if b - a > 0]
+        if isinstance(item, Cylinder):
+            sizes.append(2 * item.radius)
+    return float(min(sizes)) if sizes else np.inf
+
+
+def check_mesh(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> None:
+    """Refuse a mesh that cannot be right for this scene.
+
+    Refused are: lines that are not strictly increasing, a neighbour ratio above
+    ``max_growth_ratio``, and any cell smaller than :data:`SLIVER_FRACTION` times the smallest
+    geometric feature (such a sliver sets a needlessly tiny timestep).
+
+    Raises
+    ------
+    MeshRefused
+        Naming the axis and the line positions in millimetres.
+    """
+    feature = smallest_feature(model)
+    limit = SLIVER_FRACTION * feature
+    for i, a in enumerate(AXES):
+        ln = plan.lines(i)
+        h = np.diff(ln)
+        if np.any(h <= 0):
+            j = int(np.argmin(h))
+            raise MeshRefused(f"{a} lines are not strictly increasing at {ln[j]*1e3:.6f} mm, {ln[j+1]*1e3:.6f} mm")
+        bad = np.nonzero(h < limit)[0]
+        if len(bad):
+            pairs = "; ".join(f"{ln[j]*1e3:.6f} mm and {ln[j+1]*1e3:.6f} mm" for j in bad[:5])
+            raise MeshRefused(f"{a}: sliver cell(s) of {h[bad].min()*1e6:.3f} um between lines {pairs}; the smallest "
+                              f"geometric feature is {feature*1e3:.4f} mm, cells below {SLIVER_FRACTION} of it "
+                              f"({limit*1e3:.4f} mm) are refused - raise min_cell_m or fix the geometry")
+    for i, a in enumerate(AXES):
+        ln = plan.lines(i)
+        h = np.diff(ln)
+        r = plan.max_neighbour_ratio(i)
+        if r > settings.max_growth_ratio * (1 + 1e-6):
+            rr = np.maximum(h[1:] / h[:-1], h[:-1] / h[1:])
+            j = int(np.argmax(rr))
+            raise MeshRefused(f"{a}: neighbour cell ratio {r:.3f} exceeds max_growth_ratio "
+                              f"{settings.max_growth_ratio} at lines {', '.join(f'{v*1e3:.4f}' for v in ln[j:j+3])} mm")
