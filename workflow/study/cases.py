@@ -14,7 +14,7 @@ from .errors import StudyError, join_path
 from .expressions import evaluate
 from .identity import canonical_json, code_versions, content2case_id
 from .paths import has_path, parent_exists, path2parts, set_path
-from .schema import validate_case_scene
+from .schema import CaseSceneChecker
 from .study import Study, base_value, declared_solver_key
 
 
@@ -197,7 +197,8 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     combos = [tuple(v for row in combo for v in row) for combo in combos]
     cases: list[Case] = []
     seen: set[str] = set()
-    validated: set[str] = set()  # edge-unit scenes already checked against the scene schema
+    checker = CaseSceneChecker()  # validates each distinct part of the swept scenes once
+    resolved: dict[str, dict] = {}  # canonical SI scene -> builder-resolved scene (frequency-independent)
     varies = bool(study.blocks or study.derived)  # otherwise the base scene was validated at load time
     for f_Hz in study.frequencies_Hz:
         f_MHz = f_Hz / 1e6
@@ -207,16 +208,16 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             doc, parameters = _apply(study, names, row, f_MHz, label)
             check_edge_values(doc, "", f"in case {label}")
             if varies and check_scene:
-                key = canonical_json(doc["scene"])
-                if key not in validated:
-                    validate_case_scene(doc["scene"], f"in case {label}")
-                    validated.add(key)
+                checker.check(doc["scene"], f"in case {label}")
             scene_si = from_edge_units(doc["scene"])
             solver_si = from_edge_units(doc["solver"])
             solver_si["excite_ports"] = list(excite)
             if scene_resolve is not None:
                 try:
-                    scene_si = scene_resolve(scene_si)
+                    key = canonical_json(scene_si)
+                    if key not in resolved:
+                        resolved[key] = scene_resolve(scene_si)
+                    scene_si = copy.deepcopy(resolved[key])
                 except (ValueError, TypeError, KeyError) as exc:
                     raise StudyError("scene", f"in case {label}: {exc}", None, "a scene the builders accept",
                                      show_value=False) from None

@@ -198,3 +198,59 @@ def validate_case_scene(scene: Any, context: str) -> None:
         err = error2study_error(best_match(errors), prefix="scene")
         raise StudyError(err.key_path, f"{err.problem} {context}", err.value, err.allowed,
                          show_value=err.show_value)
+
+
+#: top-level keywords under which validating the scene section by section equals validating it whole
+_SECTIONWISE_KEYWORDS = frozenset({"$schema", "$id", "title", "description", "type", "additionalProperties",
+                                   "required", "properties", "$defs", "default", "$comment"})
+
+
+class CaseSceneChecker:
+    """Validates many cases' edge-unit scenes, each distinct part only once.
+
+    The first scene with a given set of top-level keys is validated whole; after that only the
+    top-level parts (``phantom``, ``implant``, ...) not seen before are validated, each against its
+    own sub-schema. This equals whole validation as long as the scene schema's top level only uses
+    ``type``, ``required``, ``additionalProperties`` and ``properties`` (checked; otherwise every scene
+    is validated whole).
+    """
+
+    def __init__(self):
+        from .identity import canonical_json
+
+        self._text = canonical_json
+        contents = _read_json("bodysweep.geometry", "data", "scene.schema.json") or _ANY_OBJECT
+        self._sectionwise = set(contents) <= _SECTIONWISE_KEYWORDS
+        self._properties = set(contents.get("properties", {}))
+        self._shapes: set[tuple] = set()
+        self._parts: set[tuple[str, str]] = set()
+        self._validators: dict[str, jsonschema.Draft202012Validator] = {}
+
+    def _part_validator(self, key: str) -> jsonschema.Draft202012Validator:
+        if key not in self._validators:
+            registry = referencing.Registry().with_resources(_resources())
+            self._validators[key] = jsonschema.Draft202012Validator(
+                {"$ref": f"{SCENE_SCHEMA_URI}#/properties/{key}"}, registry=registry)
+        return self._validators[key]
+
+    def check(self, scene: Any, context: str) -> None:
+        """Raise :class:`StudyError` (key path under ``scene``, problem + ``context``) for a bad scene."""
+        if not isinstance(scene, dict) or not self._sectionwise:
+            validate_case_scene(scene, context)
+            return
+        shape = tuple(sorted(scene))
+        parts = [(k, self._text(v)) for k, v in scene.items()]
+        if shape not in self._shapes or any(k not in self._properties for k in scene):
+            validate_case_scene(scene, context)
+            self._shapes.add(shape)
+            self._parts.update(parts)
+            return
+        for (k, text), v in zip(parts, scene.values()):
+            if (k, text) in self._parts:
+                continue
+            errors = list(self._part_validator(k).iter_errors(v))
+            if errors:
+                err = error2study_error(best_match(errors), prefix=f"scene.{k}")
+                raise StudyError(err.key_path, f"{err.problem} {context}", err.value, err.allowed,
+                                 show_value=err.show_value)
+            self._parts.add((k, text))
