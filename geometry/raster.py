@@ -60,9 +60,15 @@ def inside(prim: Primitive, points, tol: float = 0.0) -> np.ndarray:
         ia, ib = prim.plane_axes()
         w = p[:, n]
         in_slab = (w >= prim.elevation - tol - 1e-15) & (w <= prim.elevation + prim.thickness + tol + 1e-15)
+        P = np.asarray(prim.points)
+        uv = p[:, [ia, ib]]
+        in_slab &= np.all((uv >= P.min(0) - 1e-15) & (uv <= P.max(0) + 1e-15), axis=1)  # bounding-box prefilter
         out = np.zeros(len(p), dtype=bool)
-        if in_slab.any():
-            out[in_slab] = points_in_polygon(p[in_slab][:, [ia, ib]], prim.points)
+        idx = np.flatnonzero(in_slab)
+        chunk = max(1, 2_000_000 // len(P))  # keeps the (points x edges) work arrays small
+        for k in range(0, len(idx), chunk):
+            sel = idx[k:k + chunk]
+            out[sel] = points_in_polygon(uv[sel], P)
         return out
     raise TypeError(f"unknown primitive {type(prim).__name__}")
 
