@@ -24,9 +24,12 @@ wildcard_constraints:
 # Light steps run in this process, also when the solve/scene/finish jobs go to a cluster scheduler.
 localrules: all, collect, report
 
+# Every case's metrics.json is a target of its own: a result removed on purpose (bodysweep run
+# --retry-failed) is redone even though the tables built from it are still newer than the rest.
 rule all:
     input:
         RUN.layout.report_file,
+        expand(f"{CASES}/{{case}}/metrics.json", case=RUN.case_ids),
 
 include: "workflow/rules/scene.smk"    # build the scene at the case frequency, three-plane preview
 include: "workflow/rules/solve.smk"    # one FDTD run per case and excited port

@@ -113,11 +113,11 @@ def plot_peak_sar(summary: pd.DataFrame, path: Path) -> Path | None:
                label=f"{mass} average")
     labels = ok["label"].astype(str).where(ok["label"].astype(str) != "", ok["case_id"])
     ax.set_xticks(range(len(ok)), labels, rotation=70, ha="right", fontsize=7)
-    ax.set_ylabel("peak averaged SAR per input power (W/kg per W)")
+    ax.set_ylabel("peak averaged SAR (W/kg per W accepted at port 1)")
     ax.set_yscale("log")
     ax.grid(True, axis="y", alpha=0.3)
     ax.legend()
-    ax.set_title("Peak averaged SAR per watt of input power")
+    ax.set_title("Peak averaged SAR per watt accepted at port 1")
     return _save(fig, path)
 
 
