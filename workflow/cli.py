@@ -91,12 +91,17 @@ def case_cost(case: dict) -> dict:
 
     Returns a dict ``cells, timestep_s, timesteps, memory_B, cpu_s`` (``cpu_s`` for all excited ports).
     """
-    from .solver import cost, mesh
+    from .solver import mesh
     from .solver.settings import settings_from_dict
 
     model = _build_model(case)
     settings = settings_from_dict(case.get("solver"))
     plan = mesh.auto_mesh(model, settings)
+    try:
+        from .solver import cost
+    except ImportError:  # no cost model installed: the mesh still gives the cell count
+        nan = float("nan")
+        return {"cells": float(plan.n_cells), "timestep_s": nan, "timesteps": nan, "memory_B": nan, "cpu_s": nan}
     est = cost.estimate(plan, model, settings)
     get = (lambda k: est[k]) if isinstance(est, dict) else (lambda k: getattr(est, k))
 
@@ -146,6 +151,17 @@ def plan_rows(layout, entries, dicts, previous) -> list[dict]:
     return rows
 
 
+def study_cpu_budget_hours(study, given: float | None) -> float:
+    """The CPU-time budget: the command line's, else the study file's ``budget.max_cpu_hours``, else 24 h."""
+    if given is not None:
+        return float(given)
+    try:
+        v = study.budget.get("max_cpu_hours")
+    except (AttributeError, KeyError, TypeError):
+        v = None
+    return float(v) if v else 24.0
+
+
 def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float) -> list[str]:
     todo = [r for r in rows if r["state"] in ("to run", "changed")]
     cpu = sum(r.get("cpu_s", 0.0) for r in todo if r.get("cpu_s", 0.0) == r.get("cpu_s", 0.0))
@@ -192,13 +208,14 @@ def cmd_plan(a) -> int:
               f"{(_fmt_bytes(r['memory_B']) if has else '-'):>9} {(_fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
     counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to run", "changed", "failed")}
     todo = [r for r in rows if r["state"] in ("to run", "changed")]
-    cpu = sum(r["cpu_s"] for r in todo if r["cpu_s"] == r["cpu_s"])
-    mem = max([r["memory_B"] for r in todo if r["memory_B"] == r["memory_B"]] or [0.0])
+    cpus = [r["cpu_s"] for r in todo if r["cpu_s"] == r["cpu_s"]]
+    cpu = sum(cpus) if cpus else float("nan")
+    mem = max([r["memory_B"] for r in todo if r["memory_B"] == r["memory_B"]] or [float("nan")])
     cells = sum(r["cells"] for r in todo if r["cells"] == r["cells"])
     print(f"total: {len(rows)} cases: " + ", ".join(f"{n} {s}" for s, n in counts.items())
           + f"; to run: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}"
           + f" (failed cases rerun only with `run --retry-failed`)")
-    problems = budget_problems(rows, a.max_cpu_hours, a.max_memory_GB)
+    problems = budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB)
     if problems and not a.accept_cost:
         for p in problems:
             _err(f"over budget: {p}")
@@ -215,7 +232,7 @@ def cmd_run(a) -> int:
     _check_geometry(dicts)
     if not a.accept_cost:
         rows = plan_rows(layout, entries, dicts, previous_plan(layout))
-        problems = budget_problems(rows, a.max_cpu_hours, a.max_memory_GB)
+        problems = budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB)
         if problems:
             for p in problems:
                 _err(f"over budget: {p}")
@@ -358,8 +375,9 @@ def build_parser() -> argparse.ArgumentParser:
         return p
 
     def budget(p):
-        p.add_argument("--max-cpu-hours", type=float, default=24.0,
-                       help="refuse when the estimated CPU time of the cases to run exceeds this (default 24 h)")
+        p.add_argument("--max-cpu-hours", type=float, default=None,
+                       help="refuse when the estimated CPU time of the cases to run exceeds this "
+                            "(default: the study's budget.max_cpu_hours, else 24 h)")
         p.add_argument("--max-memory-GB", type=float, default=round(0.8 * _machine_memory_GB(), 1),
                        help="refuse when a case needs more memory than this (default 80%% of this machine's)")
         p.add_argument("--accept-cost", action="store_true", help="run even when over the budget")
