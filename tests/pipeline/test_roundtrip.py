@@ -89,3 +89,17 @@ def test_verify_catches_tampering(work, capsys):
     assert "summary.reason differs" in capsys.readouterr().out
     assert cli.main(["collect", study]) == 0
     assert cli.main(["verify", study]) == 0
+
+
+def test_snakemake_directly_with_configfile(work):
+    """The Snakefile also runs on its own: ``snakemake --configfile <study>``; after the run nothing is left to do."""
+    import subprocess
+    import sys
+
+    from bodysweep.workflow.pipeline import SNAKEFILE
+
+    p = subprocess.run([sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE), "--configfile", str(TINY),
+                        "--cores", "1", "--rerun-triggers", "mtime", "--dry-run"], cwd=work, capture_output=True,
+                       text=True)
+    assert p.returncode == 0, p.stderr[-2000:]
+    assert "Nothing to be done" in p.stdout + p.stderr
