@@ -227,3 +227,14 @@ def test_scene_builder_refusal_surfaces_with_the_case_label():
     assert "in case f=403MHz t=unobtainium: phantom layer 0" in str(info.value)
     assert "\n" not in str(info.value)
 
+
+
+def test_exciting_port_2_needs_an_implant():
+    d = _minimal()
+    del d["scene"]["implant"]
+    d["scene"]["concentrators"] = []
+    assert len(expand(load_study(d))) == 1  # a scene without implant is fine with port 1 only
+    d["excite"] = [1, 2]
+    with pytest.raises(StudyError) as info:
+        expand(load_study(d))
+    assert info.value.key_path == "excite" and "no implant" in str(info.value)

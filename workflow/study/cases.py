@@ -227,6 +227,9 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
                 except (ValueError, TypeError, KeyError) as exc:
                     raise StudyError("solver", f"in case {label}: {exc}", None, "settings the solver accepts",
                                      show_value=False) from None
+            if 2 in excite and not scene_si.get("implant"):
+                raise StudyError("excite", f"port 2 is the implant antenna's feed, but case {label} has no implant",
+                                 list(excite), "[1] for a scene without implant")
             content = identity_content(scene_si, f_Hz, solver_si, sar, excite, versions)
             case_id = content2case_id(content)
             if case_id in seen:
