@@ -199,7 +199,7 @@ def mark_unfinished(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
     """After a run: write a failure record for each case whose jobs died without writing ``metrics.json``.
 
     The solve and finish steps record their own failures; this catches what they cannot (a crashed
-    engine process, a killed job). Returns the ids marked.
+    engine process, a killed job). Cases none of whose jobs started are left alone. Returns the ids marked.
     """
     marked = []
     for e in entries:
@@ -207,8 +207,10 @@ def mark_unfinished(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
         if (d / "metrics.json").exists():
             continue
         logs = sorted(str(p.relative_to(d)) for p in (d / "logs").glob("*.log")) if (d / "logs").exists() else []
+        if not logs:  # no job of this case started (the pipeline stopped before): nothing to record
+            continue
         write_json(d / "metrics.json", failure_record(
-            e, f"a job of this case ended without a result (crashed or killed); see {', '.join(logs) or 'the run log'}",
+            e, f"a job of this case ended without a result (crashed or killed); see {', '.join(logs)}",
             "run"))
         marked.append(e["case_id"])
     return marked

@@ -54,3 +54,20 @@ def test_failed_case_is_recorded_and_retried(tmp_path, monkeypatch, capsys):
     assert _case_jobs(scheduled_jobs(study, workdir=tmp_path)) == {"scene": n_failed, "solve": n_failed,
                                                                    "finish": n_failed}
     shutil.rmtree(tmp_path / "results")
+
+
+def test_crashed_job_gets_a_failure_record(tmp_path):
+    """A case whose job died (a log, no metrics.json) is recorded as failed; a case never started is not."""
+    import json
+
+    from bodysweep.workflow.pipeline import mark_unfinished
+
+    layout = StudyLayout.of("t", tmp_path)
+    started, untouched = {"case_id": "aaaaaaaaaaaa"}, {"case_id": "bbbbbbbbbbbb"}
+    (layout.case_dir("aaaaaaaaaaaa") / "logs").mkdir(parents=True)
+    (layout.case_dir("aaaaaaaaaaaa") / "logs" / "solve_1.log").write_text("Segmentation fault\n")
+    layout.case_dir("bbbbbbbbbbbb").mkdir(parents=True)
+    assert mark_unfinished(layout, [started, untouched]) == ["aaaaaaaaaaaa"]
+    m = json.loads((layout.case_dir("aaaaaaaaaaaa") / "metrics.json").read_text())
+    assert m["status"] == "failed" and "logs/solve_1.log" in m["reason"]
+    assert not (layout.case_dir("bbbbbbbbbbbb") / "metrics.json").exists()
