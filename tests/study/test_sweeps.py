@@ -238,3 +238,17 @@ def test_exciting_port_2_needs_an_implant():
     with pytest.raises(StudyError) as info:
         expand(load_study(d))
     assert info.value.key_path == "excite" and "no implant" in str(info.value)
+
+
+def test_derived_count_stays_a_whole_number():
+    d = _study({"cpw": "solver.cells_per_wavelength"}, [{"grid": {"cpw": [12, 16]}}])
+    d["solver"] = {"port_cells": 2}
+    d["derived"] = {"pc": {"path": "solver.port_cells", "expr": "cpw / 4"}}
+    cases = expand(load_study(d))
+    # 12 / 4 = 3 and 16 / 4 = 4 (analytic); port_cells is an integer key (solver.schema.json)
+    assert [c.solver["port_cells"] for c in cases] == [3, 4]
+    assert all(type(c.solver["port_cells"]) is int for c in cases)
+    d["derived"]["pc"]["expr"] = "cpw / 5"
+    with pytest.raises(StudyError) as info:
+        expand(load_study(d))
+    assert info.value.key_path == "derived.pc.expr" and "whole number" in str(info.value)

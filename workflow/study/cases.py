@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import copy
+import functools
 import importlib
 import itertools
 from dataclasses import dataclass, field
@@ -124,6 +125,16 @@ def case_label(frequency_MHz: float, items: list[tuple[str, Any, str]]) -> str:
     return " ".join([f"f={_format(float(frequency_MHz))}MHz"] + [f"{n}={_format(v)}{u}" for n, v, u in items])
 
 
+@functools.lru_cache(maxsize=1)
+def _integer_solver_paths() -> frozenset[str]:
+    """``solver.<key>`` paths whose schema type is integer."""
+    from .schema import _read_json
+
+    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json") or {}
+    return frozenset(f"solver.{k}" for k, v in schema.get("properties", {}).items()
+                     if isinstance(v, dict) and v.get("type") == "integer")
+
+
 def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz: float, label: str):
     """Edge-unit scene/solver of one case and its parameter dict (choices, then scalars, then derived)."""
     doc = {"scene": copy.deepcopy(study.raw["scene"]), "solver": copy.deepcopy(study.raw["solver"])}
@@ -165,6 +176,12 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
             raise StudyError(join_path(where, "path"), f"in case {label}: path {d.path!r} does not exist",
                              d.path, "a path present in every case")
         value = float(f"{float(value):.12g}")  # drop float noise such as 30.299999999999997
+        if d.path in _integer_solver_paths():  # a count (cells, timesteps): stays a whole number
+            if not value.is_integer():
+                raise StudyError(join_path(where, "expr"), f"in case {label}: {d.path} takes a whole number, "
+                                 f"the expression gives {value:g}", d.expr, "an expression giving a whole number "
+                                 "(e.g. use min/max of whole numbers)")
+            value = int(value)
         set_path(doc, d.path, value)
         parameters[d.path] = value
         env[d.name] = value
