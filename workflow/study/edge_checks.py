@@ -19,6 +19,8 @@ from typing import Any, Iterator
 from .errors import StudyError, join_path
 
 MAX_ABS_LENGTH_MM = 10_000.0
+#: larger integers cannot be represented as floats exactly (IEEE 754 double: 2**53) and are refused
+MAX_ABS_INTEGER = 2**53
 FREQUENCY_RANGE_MHZ = (10.0, 6000.0)
 SIZE_WORDS = ("thickness", "radius", "length", "width", "height", "diameter", "depth", "gap", "size",
               "spacing", "pitch", "side")
@@ -35,7 +37,7 @@ def _numbers(value: Any, path: str) -> Iterator[tuple[str, float]]:
 
 
 def check_finite(data: Any, path: str = "") -> None:
-    """Every number in ``data`` is finite (NaN and infinities are refused with their key path)."""
+    """Every number in ``data`` is finite and every integer within +-2**53 (refused with their key path)."""
     if isinstance(data, dict):
         for k, v in data.items():
             check_finite(v, join_path(path, k))
@@ -44,6 +46,8 @@ def check_finite(data: Any, path: str = "") -> None:
             check_finite(v, join_path(path, i))
     elif isinstance(data, float) and not math.isfinite(data):
         raise StudyError(path or "(root)", "number is not finite", data, "finite numbers")
+    elif isinstance(data, int) and not isinstance(data, bool) and abs(data) > MAX_ABS_INTEGER:
+        raise StudyError(path or "(root)", "integer too large", data, "integers within +-2**53")
 
 
 def check_edge_values(data: Any, path: str = "", context: str = "") -> None:
