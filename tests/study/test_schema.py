@@ -81,3 +81,10 @@ def test_study_error_pickles_and_keeps_its_parts():
     back = pickle.loads(pickle.dumps(err))
     assert (back.key_path, back.problem, back.value, back.allowed) == ("sweep.blocks.0", "bad", [1, 2], "something")
     assert str(back) == "sweep.blocks.0: bad (got [1, 2]; allowed: something)"
+
+
+def test_study_error_from_one_message():
+    err = StudyError("scene.implant.depth_mm: must be positive")
+    assert err.key_path == "scene.implant.depth_mm" and err.problem == "must be positive"
+    assert "\n" not in str(err) and str(err).startswith("scene.implant.depth_mm: must be positive")
+    assert isinstance(err, ValueError)

@@ -41,8 +41,11 @@ class StudyError(ValueError):
     ``str(err)`` is one line: ``"<key path>: <problem> (got <value>; allowed: <allowed>)"``.
     """
 
-    def __init__(self, key_path: str, problem: str, value: Any = None, allowed: str = "", *,
+    def __init__(self, key_path: str, problem: str = "", value: Any = None, allowed: str = "", *,
                  show_value: bool = True):
+        if not problem and ": " in str(key_path):  # StudyError("<key path>: <problem>") also works
+            key_path, problem = str(key_path).split(": ", 1)
+            show_value = show_value and value is not None
         self.key_path = _one_line(key_path) or "(root)"
         self.problem = _one_line(problem)
         self.value = value
