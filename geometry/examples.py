@@ -19,7 +19,7 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
     ----------
     depth_mm : float
         Depth of the capsule centre below the skin surface; meant for 5 ... 15 mm
-        (the muscle layer spans 4.5 ... 19 mm below the surface).
+        (the muscle layer spans 5 ... 19 mm below the surface).
 
     Returns
     -------
@@ -32,11 +32,11 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
         "phantom": {
             "type": "layered_cylinder",
             "axis": "y",
-            "length_mm": 80.0,
+            "length_mm": 50.0,
             "layers": [
-                {"tissue": "skin_wet", "thickness_mm": 1.5},
+                {"tissue": "skin_wet", "thickness_mm": 2.0},
                 {"tissue": "fat_not_infiltrated", "thickness_mm": 3.0},
-                {"tissue": "muscle", "thickness_mm": 14.5},
+                {"tissue": "muscle", "thickness_mm": 14.0},
             ],
             "core": {"tissue": "bone_cortical", "radius_mm": 6.0},
         },
@@ -44,8 +44,8 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
             "type": "loop",
             "shape": "circular",
             "radius_mm": 12.0,
-            "trace_width_mm": 1.5,
-            "feed_gap_mm": 1.0,
+            "trace_width_mm": 2.0,
+            "feed_gap_mm": 2.0,
             "turns": 1,
             "normal": "z",
             "position_mm": [0.0, 0.0],
@@ -56,9 +56,9 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
         "implant": {
             "type": "loop",
             "shape": "circular",
-            "radius_mm": 2.5,
-            "trace_width_mm": 0.5,
-            "feed_gap_mm": 0.5,
+            "radius_mm": 3.0,
+            "trace_width_mm": 1.0,
+            "feed_gap_mm": 1.0,
             "turns": 1,
             "normal": "z",
             "position_mm": [0.0, 0.0],
@@ -69,7 +69,7 @@ def forearm_capsule_scene(depth_mm: float = 10.0) -> dict:
         },
         "concentrators": [
             {"type": "rod_pair", "anchor": "implant", "offset_mm": [6.0, 0.0, 0.0], "azimuth_deg": 90.0,
-             "rod_length_mm": 8.0, "gap_mm": 2.0, "radius_mm": 0.4, "conductor": "pec"},
+             "rod_length_mm": 8.0, "gap_mm": 2.0, "radius_mm": 0.5, "conductor": "pec"},
         ],
         "materials": [
             {"type": "conductor", "name": "copper", "sigma_S_per_m": 5.8e7},

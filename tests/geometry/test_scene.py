@@ -125,7 +125,7 @@ def test_error_implant_outside_phantom():
 
 def test_error_concentrator_too_close_to_implant():
     d = _edge()
-    d["concentrators"][0]["offset_mm"] = [4.5, 0.0, 0.0]
+    d["concentrators"][0]["offset_mm"] = [4.6, 0.0, 0.0]  # capsule radius 4 mm + rod radius 0.5 mm: 0.1 mm gap
     _err(d, r"concentrator 0 \(rod_pair\) is 0.1 mm from the implant; the minimum clearance is 0.5 mm")
     d["min_clearance_mm"] = 0.05
     Scene.from_edge_dict(d)  # allowed with a smaller clearance
