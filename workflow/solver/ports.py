@@ -9,7 +9,11 @@ from ``start`` to ``stop`` along ``axis``). In openEMS it is made of four parts:
   source that openEMS uses for lumped ports: the field is added to the update, so together with
   the resistor it is a Thevenin source of internal resistance ``Z0``);
 * a voltage probe (``p_type=0``): the line integral of E along the gap, through the gap centre;
-* a current probe (``p_type=1``): the loop integral of H around the gap, in its mid-plane.
+* current probes (``p_type=1``): the loop integral of H around the gap, one in the middle of each
+  mesh cell across the gap; the port current is their mean. (With an even number of gap cells the
+  gap's mid-plane is a mesh line, and a single probe would sit in one half of the gap: it would
+  count a current mode that is odd about the gap centre, e.g. induced by a field that is symmetric
+  about the feed, which carries no port voltage and gives a spurious transmission.)
 
 Sign convention (the same as :mod:`bodysweep.workflow.post.sparams`): ``V`` is the potential of
 the ``stop`` terminal minus that of the ``start`` terminal; ``I`` is the current flowing *into* the
@@ -46,8 +50,11 @@ class PortProbes:
         0, 1, 2 for x, y, z.
     direction : int
         ``sign(stop - start)`` along ``axis``.
-    voltage_file, current_file : str
-        Names of the probe files openEMS writes into the simulation folder.
+    voltage_file : str
+        Name of the voltage probe file openEMS writes into the simulation folder.
+    current_files : tuple of str
+        Names of the current probe files, one per mesh cell across the gap (see
+        :func:`add_lumped_port`).
     excited : bool
         Whether this port carries the source in this run.
     """
@@ -57,8 +64,11 @@ class PortProbes:
     axis: int
     direction: int
     voltage_file: str
-    current_file: str
+    current_files: tuple[str, ...]
     excited: bool
+
+    def __post_init__(self):
+        object.__setattr__(self, "current_files", tuple(self.current_files))
 
 
 def add_lumped_port(csx, port: Port, excite: bool, priority: int = PRIORITY_PORT) -> PortProbes:
@@ -95,15 +105,25 @@ def add_lumped_port(csx, port: Port, excite: bool, priority: int = PRIORITY_PORT
     centre = 0.5 * (start + stop)
     u_start, u_stop = centre.copy(), centre.copy()
     u_start[ax], u_stop[ax] = start[ax], stop[ax]
-    u_name, i_name = f"{tag}_ut", f"{tag}_it"
+    u_name = f"{tag}_ut"
     u_probe = csx.AddProbe(u_name, p_type=0, weight=-d)
     u_probe.AddBox(u_start, u_stop)
-    i_start, i_stop = start.copy(), stop.copy()
-    i_start[ax] = i_stop[ax] = centre[ax]
-    i_probe = csx.AddProbe(i_name, p_type=1, weight=d, norm_dir=ax)
-    i_probe.AddBox(i_start, i_stop)
+    lines = np.asarray(csx.GetGrid().GetLines(ax), dtype=float)
+    g_lo, g_hi = min(start[ax], stop[ax]), max(start[ax], stop[ax])
+    inside = lines[(lines >= g_lo - 1e-12 * max(1.0, abs(g_lo))) & (lines <= g_hi + 1e-12 * max(1.0, abs(g_hi)))]
+    if inside.size < 2:
+        raise ValueError(f"port {port.name!r}: the mesh has {inside.size} line(s) in the feed gap "
+                         f"[{g_lo}, {g_hi}] m along {port.axis}; it needs lines at both gap ends")
+    i_names = []
+    for k, mid in enumerate(0.5 * (inside[1:] + inside[:-1])):
+        name = f"{tag}_it{k}"
+        i_start, i_stop = start.copy(), stop.copy()
+        i_start[ax] = i_stop[ax] = mid
+        i_probe = csx.AddProbe(name, p_type=1, weight=d, norm_dir=ax)
+        i_probe.AddBox(i_start, i_stop)
+        i_names.append(name)
     return PortProbes(number=port.number, impedance_ohm=float(port.impedance_ohm), axis=ax, direction=d,
-                      voltage_file=u_name, current_file=i_name, excited=bool(excite))
+                      voltage_file=u_name, current_files=tuple(i_names), excited=bool(excite))
 
 
 def read_probe(path) -> tuple[np.ndarray, np.ndarray]:
@@ -133,8 +153,11 @@ def probe_signals(sim_dir, probes: PortProbes) -> dict[str, np.ndarray]:
     """
     sim_dir = Path(sim_dir)
     tu, u = read_probe(sim_dir / probes.voltage_file)
-    ti, i = read_probe(sim_dir / probes.current_file)
-    return {"t_voltage_s": tu, "voltage_V": u, "t_current_s": ti, "current_A": i}
+    currents = [read_probe(sim_dir / name) for name in probes.current_files]
+    ti = currents[0][0]
+    n = min(c[1].size for c in currents)
+    i = np.mean([c[1][:n] for c in currents], axis=0)
+    return {"t_voltage_s": tu, "voltage_V": u, "t_current_s": ti[:n], "current_A": i}
 
 
 def signals2phasors(t_voltage_s, voltage_V, t_current_s, current_A, f_Hz) -> tuple[np.ndarray, np.ndarray]:

@@ -12,7 +12,8 @@ the engine log, reads the port probes and the raw SAR dump and writes, in ``exci
 ``fields_raw.h5``
     port 1 only: the raw SAR data at the case frequency, rearranged to ``(nx, ny, nz)`` arrays:
     ``E_V_per_m`` (3, nx, ny, nz) complex peak phasor, ``sigma_S_per_m``, ``density_kg_m3``,
-    ``volume_m3`` (nx, ny, nz) and cell centres ``x_m``, ``y_m``, ``z_m``.
+    ``volume_m3`` (nx, ny, nz), cell centres ``x_m``, ``y_m``, ``z_m`` and cell edges ``x_edges_m``
+    (nx+1,), ``y_edges_m``, ``z_edges_m``.
 ``solver.log``
     the engine's console output.
 ``status.json``
@@ -154,7 +155,8 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
         setup = {"cells": report.cells, "clipped": report.clipped, "air_slabs": report.air_slabs,
                  "notes": report.notes, "pulse_f0_Hz": pulse_f0, "pulse_fc_Hz": pulse_fc,
                  "max_timesteps": settings.max_timesteps, "end_criterion_dB": settings.end_criterion_dB,
-                 "probes": [vars(p) for p in probes]}
+                 "probes": [vars(p) for p in probes],
+                 "lines_m": [np.asarray(getattr(plan, f"lines_{a}"), float).tolist() for a in "xyz"]}
         (work / _CHILD_SETUP).write_text(json.dumps(setup))
         sys.stdout.flush()
         engine.run(fdtd, work / "sim", threads=threads, verbose=1)
@@ -218,6 +220,22 @@ def _raw_dump2arrays(path: Path) -> dict[str, np.ndarray]:
                          f"{[v.shape for v in cell.values()]} for a mesh of {shape} cells")
     return {"E_V_per_m": E, "sigma_S_per_m": cell["Conductivity"], "density_kg_m3": cell["Density"],
             "volume_m3": cell["Volume"], "x_m": x, "y_m": y, "z_m": z, "frequency_Hz": np.float64(f)}
+
+
+def centres2edges(centres, lines) -> np.ndarray:
+    """Cell edges, shape (n+1,), of the ``n`` consecutive mesh cells whose centres are ``centres``.
+
+    Raises ``ValueError`` if the centres are not those of consecutive cells of ``lines``.
+    """
+    c = np.asarray(centres, float)
+    l = np.asarray(lines, float)
+    mid = 0.5 * (l[1:] + l[:-1])
+    i0 = int(np.argmin(np.abs(mid - c[0])))
+    edges = l[i0:i0 + c.size + 1]
+    tol = 0.01 * float(np.min(np.diff(l)))  # the dump stores centres in float32
+    if edges.size != c.size + 1 or np.max(np.abs(0.5 * (edges[1:] + edges[:-1]) - c)) > tol:
+        raise ValueError("raw SAR dump: its cell centres do not match consecutive cells of the mesh")
+    return edges
 
 
 def _write_fields(path: Path, arrays: dict, attrs: dict) -> None:
@@ -348,6 +366,8 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
                     reason = "raw SAR dump missing after the run"
                 else:
                     arrays = _raw_dump2arrays(raw)
+                    for a, lines in zip("xyz", setup["lines_m"]):
+                        arrays[f"{a}_edges_m"] = centres2edges(arrays[f"{a}_m"], lines)
                     if not np.all(np.isfinite(arrays["E_V_per_m"])):
                         reason = "raw SAR dump contains NaN or infinity"
                     else:

@@ -1,0 +1,327 @@
+"""Finish a case: S-matrix, SAR, link budget and the case's output files.
+
+:func:`finish_case` reads what the excitations left in ``excite_<p>/`` (see :mod:`.run`) and writes
+
+``sparams.s2p`` (``.s1p`` for a one-port scene)
+    the S-matrix over the band (Touchstone, through :func:`bodysweep.workflow.post.sparams.write_touchstone`);
+``result.h5``
+    local SAR and the mass-averaged SAR volumes per watt accepted at port 1 (compressed), the SAR
+    grid (cell edges), the S-matrix over the band; attributes: case id, scene, settings, versions;
+``metrics.json``
+    the small summary the collectors read (status, S-parameters at the case frequency as [re, im],
+    passivity, reciprocity, peak SAR per mass with location, limits with allowed input power and
+    delivered power, matched link efficiency, runtime, cells, timesteps, decay, the solver's own
+    averaged SAR beside ours when it was run).
+
+All SAR figures are normalised to 1 W *accepted* at port 1 (``0.5 Re{V conj(I)}`` at the case
+frequency, current into the antenna), so they do not depend on the source amplitude or on the
+match of the external antenna.
+"""
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+
+from bodysweep.workflow.post import sparams
+
+__all__ = ["finish_case", "read_excitation", "smatrix_from_excitations", "sar_per_watt", "link_budget_rows"]
+
+
+def _read_json(path: Path) -> dict:
+    return json.loads(Path(path).read_text())
+
+
+def _c2pair(z) -> list | None:
+    z = complex(z)
+    if not (math.isfinite(z.real) and math.isfinite(z.imag)):
+        return None
+    return [z.real, z.imag]
+
+
+def _finite_or_none(v) -> float | None:
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def read_excitation(exc_dir) -> dict:
+    """Port phasors of one excitation from its ``signals.h5``.
+
+    Returns
+    -------
+    dict
+        ``f_band_Hz`` (nf,), ``frequency_Hz``, ``excited_port`` (int), ``timesteps``, ``decay_reached`` and,
+        with ports ordered by number, ``ports`` (n_ports,), ``z0_ohm`` (n_ports,), ``V_band``,
+        ``I_band`` (n_ports, nf), ``V_f0``, ``I_f0`` (n_ports,).
+    """
+    import h5py
+
+    with h5py.File(Path(exc_dir) / "signals.h5", "r") as h5:
+        numbers = sorted(int(k[4:]) for k in h5.keys() if k.startswith("port"))
+        out = {"f_band_Hz": h5["f_band_Hz"][()], "frequency_Hz": float(h5.attrs["frequency_Hz"]),
+               "excited_port": int(h5.attrs["excited_port"]), "timesteps": int(h5.attrs["timesteps"]),
+               "decay_reached": bool(h5.attrs["decay_reached"]), "ports": np.array(numbers)}
+        g = [h5[f"port{n}"] for n in numbers]
+        out["z0_ohm"] = np.array([float(x.attrs["impedance_ohm"]) for x in g])
+        out["V_band"] = np.array([x["V_band"][()] for x in g])
+        out["I_band"] = np.array([x["I_band"][()] for x in g])
+        out["V_f0"] = np.array([complex(x.attrs["V_f0"]) for x in g])
+        out["I_f0"] = np.array([complex(x.attrs["I_f0"]) for x in g])
+    return out
+
+
+def smatrix_from_excitations(excitations: list[dict], key: str = "band") -> np.ndarray:
+    """S-matrix from one or more excitations of the same scene.
+
+    Parameters
+    ----------
+    excitations : list of dict
+        From :func:`read_excitation`, same ports in each.
+    key : {"band", "f0"}
+        The band (``V_band``, ``I_band``) or the case frequency (``V_f0``, ``I_f0``).
+
+    Returns
+    -------
+    S : numpy.ndarray, complex, shape (nf, n_ports, n_ports)
+        ``nf = 1`` for ``"f0"``. Columns of ports never excited are NaN.
+    """
+    ports = excitations[0]["ports"]
+    for e in excitations:
+        if not np.array_equal(e["ports"], ports):
+            raise ValueError(f"excitations disagree on the ports: {ports.tolist()} vs {e['ports'].tolist()}")
+    if key == "band":
+        V = np.stack([e["V_band"] for e in excitations])
+        I = np.stack([e["I_band"] for e in excitations])
+    else:
+        V = np.stack([e["V_f0"][:, None] for e in excitations])
+        I = np.stack([e["I_f0"][:, None] for e in excitations])
+    z0 = excitations[0]["z0_ohm"][None, :, None]
+    a, b = sparams.power_waves(V, I, z0)  # (n_exc, n_ports, nf)
+    index = {int(p): i for i, p in enumerate(ports)}
+    return sparams.smatrix_from_waves(a, b, exc_ports=[index[e["excited_port"]] for e in excitations])
+
+
+def read_raw_fields(path) -> dict:
+    """The arrays of a ``fields_raw.h5`` (see :mod:`.run`)."""
+    import h5py
+
+    with h5py.File(path, "r") as h5:
+        return {k: h5[k][()] for k in h5.keys()}
+
+
+def sar_per_watt(raw: dict, p_accepted_W: float) -> dict:
+    """Local SAR and absorbed power of a raw dump, normalised to 1 W accepted.
+
+    Parameters
+    ----------
+    raw : dict
+        ``E_V_per_m`` (3, nx, ny, nz), ``sigma_S_per_m``, ``density_kg_m3``, ``volume_m3`` (nx, ny, nz).
+    p_accepted_W : float
+        Power accepted at the driven port for the same excitation (same spectral scaling).
+
+    Returns
+    -------
+    dict
+        ``local`` (nx, ny, nz) W/kg per W; ``absorbed_tissue_W_per_W`` (tissue cells, ``rho > 0``) and
+        ``absorbed_all_W_per_W`` (every lossy cell: ``sum 0.5 sigma |E|^2 dV``), both per W accepted.
+    """
+    from bodysweep.workflow.post.sar import local_sar
+
+    if not (p_accepted_W > 0 and math.isfinite(p_accepted_W)):
+        raise ValueError(f"accepted power at port 1 must be > 0 W to normalise SAR, got {p_accepted_W} W")
+    E = raw["E_V_per_m"]
+    sigma, rho, dv = raw["sigma_S_per_m"], raw["density_kg_m3"], raw["volume_m3"]
+    e2 = np.sum(np.abs(E) ** 2, axis=0)
+    loss = 0.5 * sigma * e2 * dv  # W per cell, (nx, ny, nz)
+    local = local_sar(E, sigma, rho) / p_accepted_W
+    return {"local": local, "absorbed_tissue_W_per_W": float(np.sum(loss[rho > 0]) / p_accepted_W),
+            "absorbed_all_W_per_W": float(np.sum(loss) / p_accepted_W)}
+
+
+def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarray) -> list[dict]:
+    """Largest input power per exposure limit and the power then delivered to the implant.
+
+    Parameters
+    ----------
+    limits : list of dict
+        ``mass_kg``, ``limit_W_per_kg``, ``source``.
+    peaks : dict of float to float
+        Peak averaged SAR per W accepted, by averaging mass (kg).
+    S0 : numpy.ndarray, complex, shape (n, n)
+        S-matrix at the case frequency.
+
+    Returns
+    -------
+    list of dict
+        Each limit plus ``max_input_power_W`` (accepted at port 1, = limit / peak) and
+        ``delivered_power_W``: power into the implant port's matched load (``Z0``) at that input,
+        ``P_in |S21|^2 / (1 - |S11|^2)`` (power waves: delivered/accepted with port 2 terminated in Z0;
+        Pozar, Microwave Engineering, 4th ed., sec. 4.3 / 11.1 power-wave relations).
+    """
+    out = []
+    s11 = S0[0, 0]
+    s21 = S0[1, 0] if S0.shape[0] > 1 else np.nan
+    g = abs(s21) ** 2 / (1.0 - abs(s11) ** 2) if abs(s11) < 1 else np.nan
+    for lim in limits:
+        m = round(float(lim["mass_kg"]), 9)
+        peak = peaks.get(m, np.nan)
+        p_in = float(lim["limit_W_per_kg"]) / peak if peak and peak > 0 else np.nan
+        out.append({"mass_kg": float(lim["mass_kg"]), "limit_W_per_kg": float(lim["limit_W_per_kg"]),
+                    "source": str(lim.get("source", "")), "max_input_power_W": _finite_or_none(p_in),
+                    "delivered_power_W": _finite_or_none(p_in * g)})
+    return out
+
+
+def _versions() -> dict:
+    from bodysweep.geometry import BUILDER_VERSION
+    from bodysweep.workflow.post import POST_VERSION
+
+    from . import ADAPTER_VERSION
+    from .engine import engine_versions
+
+    return {"builder": BUILDER_VERSION, "adapter": ADAPTER_VERSION, "post": POST_VERSION, **engine_versions()}
+
+
+def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:
+    st_path = case_dir / "excite_1" / "solver_sar_status.json"
+    if not st_path.exists():
+        return {"status": "not run"}
+    st = _read_json(st_path)
+    if st.get("status") != "ok":
+        return {"status": "failed", "reason": st.get("reason")}
+    import h5py
+
+    rows = []
+    with h5py.File(case_dir / "excite_1" / "solver_sar.h5", "r") as h5:
+        for m, name in ((0.001, "sar_avg_1g"), (0.01, "sar_avg_10g")):
+            if name not in h5 or m not in ours:
+                continue
+            peak = float(np.nanmax(h5[name][()])) / p_acc
+            rows.append({"mass_kg": m, "solver_peak_W_per_kg_per_W": peak, "our_peak_W_per_kg_per_W": ours[m],
+                         "relative_difference": (peak - ours[m]) / ours[m] if ours[m] else None})
+    return {"status": "ok", "note": "the engine's own average, recorded beside ours, not used", "by_mass": rows}
+
+
+def finish_case(case_dir) -> dict:
+    """S-matrix, SAR and link budget of a case; writes ``sparams.s2p``, ``result.h5``, ``metrics.json``.
+
+    Parameters
+    ----------
+    case_dir : path-like
+        Case folder with ``case.json`` and the ``excite_<p>/`` folders of the excitations.
+
+    Returns
+    -------
+    dict
+        What was written to ``metrics.json``. A failed or missing excitation gives
+        ``{"status": "failed", "reason": ...}`` (also written).
+    """
+    import h5py
+
+    from bodysweep.workflow.atomic import atomic_path, write_json
+    from bodysweep.workflow.post.sar_average import average_sar
+
+    from .settings import settings_from_dict
+
+    case_dir = Path(case_dir)
+    case = _read_json(case_dir / "case.json")
+    f0 = float(case["frequency_Hz"])
+    settings = settings_from_dict(case.get("solver") or {})
+    sar_cfg = case.get("sar") or {}
+    base = {"case_id": case.get("case_id"), "frequency_Hz": f0}
+
+    exc_ports = list(settings.excite_ports)
+    statuses = {}
+    for p in exc_ports:
+        sp = case_dir / f"excite_{p}" / "status.json"
+        statuses[p] = _read_json(sp) if sp.exists() else {"status": "failed", "reason": f"excite_{p}/status.json missing"}
+    runtime = sum(float(s.get("runtime_s") or 0.0) for s in statuses.values())
+    bad = [p for p, s in statuses.items() if s.get("status") != "ok"]
+    if bad:
+        p = bad[0]
+        out = {**base, "status": "failed", "reason": f"excitation of port {p}: {statuses[p].get('reason')}",
+               "runtime_s": runtime}
+        write_json(case_dir / "metrics.json", out)
+        return out
+
+    exc = [read_excitation(case_dir / f"excite_{p}") for p in exc_ports]
+    f_band = exc[0]["f_band_Hz"]
+    S_band = smatrix_from_excitations(exc, "band")
+    S0 = smatrix_from_excitations(exc, "f0")[0]
+    n_ports = S0.shape[0]
+    z0 = float(exc[0]["z0_ohm"][0])
+    pas = sparams.passivity(S0[None])[0]
+    rec = sparams.reciprocity(S0[None])[0] if set(exc_ports) >= set(int(p) for p in exc[0]["ports"]) else np.nan
+    pas_band = sparams.passivity(S_band)
+    sparams.write_touchstone(case_dir / "sparams.s2p", f_band, S_band, z0,
+                             comments=[f"bodysweep case {case.get('case_id')}", "current into each port, "
+                                       f"reference impedance {z0:g} ohm"])
+
+    def s(i, j):
+        return _c2pair(S0[i, j]) if i < n_ports and j < n_ports else None
+
+    metrics = {**base, "status": "ok", "reason": None, "S11": s(0, 0), "S21": s(1, 0), "S12": s(0, 1),
+               "S22": s(1, 1), "passivity": _finite_or_none(pas), "passivity_band_max": _finite_or_none(np.nanmax(pas_band)),
+               "reciprocity": _finite_or_none(rec)}
+
+    # SAR per watt accepted at port 1
+    e1 = exc[exc_ports.index(1)] if 1 in exc_ports else None
+    sar_rows, peaks, volumes = [], {}, {}
+    if e1 is not None:
+        i1 = int(np.nonzero(e1["ports"] == 1)[0][0])
+        p_acc = float(sparams.accepted_power(e1["V_f0"][i1], e1["I_f0"][i1]))
+        raw = read_raw_fields(case_dir / "excite_1" / "fields_raw.h5")
+        sp = sar_per_watt(raw, p_acc)
+        edges = (raw["x_edges_m"], raw["y_edges_m"], raw["z_edges_m"])
+        volumes["local"] = sp["local"]
+        for m in sar_cfg.get("masses_kg", [0.001, 0.01]):
+            m = float(m)
+            r = average_sar(sp["local"], raw["density_kg_m3"], *edges, m,
+                            max_air_fraction=float(sar_cfg.get("max_air_fraction", 0.1)))
+            peaks[round(m, 9)] = float(r.peak)
+            volumes[f"avg_{m * 1e3:g}g"] = r.avg
+            sar_rows.append({"mass_kg": m, "peak_W_per_kg_per_W": _finite_or_none(r.peak),
+                             "location_m": [float(v) for v in r.peak_location_m], "peak_status": int(r.peak_status)})
+        metrics["accepted_power_port1_W"] = p_acc
+        metrics["absorbed_fraction_tissue"] = sp["absorbed_tissue_W_per_W"]
+        metrics["absorbed_fraction_all"] = sp["absorbed_all_W_per_W"]
+        metrics["solver_sar"] = _solver_sar_comparison(case_dir, {m: peaks[round(m, 9)] for m in
+                                                                  (float(x) for x in sar_cfg.get("masses_kg", [0.001, 0.01]))},
+                                                       p_acc)
+    metrics["sar"] = sar_rows
+    metrics["limits"] = link_budget_rows(sar_cfg.get("limits", []), peaks, S0)
+    mle = None
+    if n_ports >= 2 and np.all(np.isfinite(S0[:2, :2])):
+        from bodysweep.workflow.post.twoport import max_available_gain
+
+        mle = _finite_or_none(np.asarray(max_available_gain(S0[None, :2, :2])).ravel()[0])
+    metrics["matched_link_efficiency"] = mle
+    metrics["runtime_s"] = runtime
+    metrics["cells"] = statuses[exc_ports[0]].get("cells")
+    metrics["timesteps"] = int(sum(int(s.get("timesteps") or 0) for s in statuses.values()))
+    metrics["decay_reached"] = all(bool(s.get("decay_reached")) for s in statuses.values())
+
+    versions = _versions()
+    scene_file = case_dir / "scene.json"
+    with atomic_path(case_dir / "result.h5") as tmp:
+        with h5py.File(tmp, "w") as h5:
+            h5.attrs["case_id"] = str(case.get("case_id"))
+            h5.attrs["scene"] = scene_file.read_text() if scene_file.exists() else json.dumps(case.get("scene"))
+            h5.attrs["settings"] = json.dumps(settings.to_dict())
+            h5.attrs["versions"] = json.dumps(versions)
+            h5.attrs["frequency_Hz"] = f0
+            h5.create_dataset("sparams/f_Hz", data=f_band)
+            h5.create_dataset("sparams/S", data=S_band)
+            if volumes:
+                g = h5.create_group("sar")
+                g.attrs["unit"] = "W/kg per W accepted at port 1"
+                for a, e in zip("xyz", edges):
+                    g.create_dataset(f"{a}_edges_m", data=e)
+                g.create_dataset("density_kg_m3", data=raw["density_kg_m3"], compression="gzip")
+                for k, v in volumes.items():
+                    g.create_dataset(k, data=v.astype(np.float32), compression="gzip", compression_opts=4)
+    metrics["versions"] = versions
+    write_json(case_dir / "metrics.json", metrics)
+    return metrics
