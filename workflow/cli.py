@@ -393,7 +393,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="engine threads per solve job (default 1: the cores run cases side by side)")
     p.add_argument("--profile", default="local",
                    help="Snakemake profile: a name in workflow/profiles/ (local, ...) or a folder with config.yaml")
-    # cluster site settings (workflow/README_cluster.md); they apply to every job sent to the scheduler
+    # cluster site settings (README.md, "Running a study on a SLURM cluster"); they apply to every job sent to the scheduler
     p.add_argument("--partition", default=None, help="cluster partition (queue) for the jobs, e.g. with --profile slurm")
     p.add_argument("--account", default=None, help="cluster account the jobs are charged to, e.g. with --profile slurm")
     g = p.add_mutually_exclusive_group()

@@ -1,6 +1,6 @@
 """Merge per-case results into tidy tables (Parquet and CSV) under ``results/<study>/tables/``.
 
-Three tables, every row carrying the ``case_id`` (see README_tables.md for the data dictionary):
+Three tables, every row carrying the ``case_id`` (see the data dictionary in README.md):
 
 ``sparams``  long form: one row per case, band frequency and S-matrix entry ``(i, j)``;
 ``sar``      one row per case and averaging mass: peak averaged SAR per watt of input power and where;
