@@ -222,6 +222,28 @@ def _raw_dump2arrays(path: Path) -> dict[str, np.ndarray]:
             "volume_m3": cell["Volume"], "x_m": x, "y_m": y, "z_m": z, "frequency_Hz": np.float64(f)}
 
 
+def _trim_to_mesh(arrays: dict, lines_m) -> dict:
+    """Drop dumped cells whose centre lies outside the mesh.
+
+    When the dump box reaches the last mesh line, openEMS also writes the cell "beyond" it (the engine
+    counts one cell per mesh line), with a centre past the domain edge and a copied volume. Those cells
+    do not exist physically; keep only centres strictly inside the first and last line of each axis.
+    """
+    keep = []
+    for a, lines in zip("xyz", lines_m):
+        l = np.asarray(lines, float)
+        c = arrays[f"{a}_m"]
+        keep.append(np.flatnonzero((c > l[0]) & (c < l[-1])))
+    ix, iy, iz = keep
+    out = dict(arrays)
+    for a, k in zip("xyz", keep):
+        out[f"{a}_m"] = arrays[f"{a}_m"][k]
+    out["E_V_per_m"] = arrays["E_V_per_m"][:, ix][:, :, iy][:, :, :, iz]
+    for name in ("sigma_S_per_m", "density_kg_m3", "volume_m3"):
+        out[name] = arrays[name][ix][:, iy][:, :, iz]
+    return out
+
+
 def centres2edges(centres, lines) -> np.ndarray:
     """Cell edges, shape (n+1,), of the ``n`` consecutive mesh cells whose centres are ``centres``.
 
@@ -365,7 +387,7 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
                 if not raw.exists():
                     reason = "raw SAR dump missing after the run"
                 else:
-                    arrays = _raw_dump2arrays(raw)
+                    arrays = _trim_to_mesh(_raw_dump2arrays(raw), setup["lines_m"])
                     for a, lines in zip("xyz", setup["lines_m"]):
                         arrays[f"{a}_edges_m"] = centres2edges(arrays[f"{a}_m"], lines)
                     if not np.all(np.isfinite(arrays["E_V_per_m"])):
