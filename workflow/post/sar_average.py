@@ -36,6 +36,9 @@ trilinear interpolation of the node tables at the 8 box corners gives the conten
 axis-aligned box exactly (to rounding). The side of each voxel's cube is found for all voxels at
 once by a bracketed Illinois (modified regula falsi) iteration on ``cbrt(m(L)) - cbrt(m_target)``,
 which is linear in ``L`` in homogeneous tissue, so it converges in one or two steps there.
+The largest enclosing average of the ``ENCLOSED`` voxels is a box-stabbing maximum, computed
+exactly by covering each enclosed index box with 2^k-sided sub-boxes and running separable
+sliding maxima per size class.
 
 Accuracy note: table differences cancel; box contents carry an absolute rounding error of about
 1e-16 of the grid total, which is negligible for the cubes that matter (near the peak).
@@ -367,36 +370,31 @@ def _enclosed_max(valid_idx, avg_valid, lo, hi, edges, shape, tol):
     if not keep.any():
         return out
     valid_idx, avg_valid, before, after = valid_idx[keep], avg_valid[keep], before[keep], after[keep]
-    pattern = np.concatenate([before, after], axis=1).astype(np.int64)
-    base = int(pattern.max()) + 1
-    if base**6 < 2**62:  # one integer key per pattern (fast unique)
-        key = np.zeros(pattern.shape[0], dtype=np.int64)
-        for col in range(6):
-            key = key * base + pattern[:, col]
-        _, first, inv = np.unique(key, return_index=True, return_inverse=True)
-        uniq = pattern[first]
-    else:
-        uniq, inv = np.unique(pattern, axis=0, return_inverse=True)
-    inv = inv.ravel()
-    order = np.argsort(inv, kind="stable")
-    bounds = np.searchsorted(inv[order], np.arange(uniq.shape[0] + 1))
-    for p in range(uniq.shape[0]):
-        sel = order[bounds[p] : bounds[p + 1]]
-        c = valid_idx[sel]
-        bf, af = uniq[p, :3], uniq[p, 3:]
-        # voxels v with c - before <= v <= c + after
-        v0 = np.maximum(c.min(axis=0) - bf, 0)
-        v1 = np.minimum(c.max(axis=0) + af, np.array(shape) - 1)
-        blk = np.full(tuple(v1 - v0 + 1), -np.inf)
-        cc = c - v0
-        np.maximum.at(blk, (cc[:, 0], cc[:, 1], cc[:, 2]), avg_valid[sel])
-        for a in range(3):
-            # out[v] = max over c in [v - after, v + before]
-            w = int(bf[a] + af[a] + 1)
+    # Each enclosed index box [start, end] is covered, per axis, by two (overlapping) intervals of
+    # length 2^k, k = floor(log2(length)) (max is idempotent, so overlap is harmless). All boxes of
+    # one size class (kx, ky, kz) are then handled by scattering their values at the sub-box start
+    # corners and one separable sliding maximum over windows [v - 2^k + 1, v]. Exact, and the
+    # number of classes is small (a few per axis).
+    start = valid_idx - before
+    end = valid_idx + after
+    k = np.floor(np.log2(end - start + 1)).astype(np.int64)
+    p = np.left_shift(1, k)
+    pieces = (start, end - p + 1)  # the two covering intervals' start indices
+    cls = (k[:, 0] * 64 + k[:, 1]) * 64 + k[:, 2]
+    for c in np.unique(cls):
+        sel = np.nonzero(cls == c)[0]
+        kk = k[sel[0]]
+        S = np.full(shape, -np.inf)
+        for px in (0, 1):
+            for py in (0, 1):
+                for pz in (0, 1):
+                    corner = [pieces[q][sel, ax] for ax, q in enumerate((px, py, pz))]
+                    np.maximum.at(S, tuple(corner), avg_valid[sel])
+        for ax in range(3):
+            w = 1 << int(kk[ax])
             if w > 1:
-                blk = maximum_filter1d(blk, w, axis=a, mode="constant", cval=-np.inf, origin=int(af[a]) - w // 2)
-        view = out[v0[0] : v1[0] + 1, v0[1] : v1[1] + 1, v0[2] : v1[2] + 1]
-        np.maximum(view, blk, out=view)
+                S = maximum_filter1d(S, w, axis=ax, mode="constant", cval=-np.inf, origin=(w - 1) - w // 2)
+        np.maximum(out, S, out=out)
     return out
 
 
