@@ -7,10 +7,10 @@ hit its limit is resubmitted larger.
 
 The Snakemake rule that solves a case uses it as (workflow/rules/solve.smk)::
 
-    from bodysweep.workflow.cluster import cluster_resources, threads_for_case
+    from bodysweep.workflow.cluster import cluster_resources, cluster_threads
     rule solve:
-        threads: lambda wc: threads_for_case(case_dir(wc))
-        resources: **cluster_resources(case_dir)      # mem_mb, runtime per case and attempt
+        threads: cluster_threads(case_dir, local_threads, lambda: not workflow.local_exec)
+        resources: **cluster_resources(case_dir, lambda: not workflow.local_exec)  # per case and attempt
 
 Resource names follow Snakemake's standard resources: ``mem_mb`` (megabytes; SLURM reads ``--mem``
 in MiB, so bytes are converted with 2**20), ``runtime`` (minutes, SLURM ``--time``), and the job's
@@ -247,13 +247,23 @@ def threads_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, sizin
     return resources_for_case(source, 1, sizing)["threads"]
 
 
-def cluster_resources(case_dir_of, sizing: JobSizing = DEFAULT_SIZING) -> dict:
-    """Snakemake ``resources:`` of the solve rule on a cluster: ``mem_mb`` and ``runtime`` per case and attempt.
+#: what the solve rule declares when it runs on this machine: Snakemake's own default memory
+#: (``max(2*input.size_mb, 1000)``, Snakemake docs "Standard resources") and one hour; the local
+#: executor only compares them with a ``--resources`` limit if one is given.
+LOCAL_DECLARED = {"mem_mb": 1000, "runtime": 60}
+
+
+def cluster_resources(case_dir_of, on_cluster, sizing: JobSizing = DEFAULT_SIZING) -> dict:
+    """Snakemake ``resources:`` of the solve rule: ``mem_mb`` and ``runtime`` per case and attempt.
 
     Parameters
     ----------
     case_dir_of : callable
         ``wildcards -> case folder`` of the job.
+    on_cluster : callable
+        ``() -> bool``: True when jobs go to a scheduler. Snakemake knows its executor only after the
+        Snakefile is read, so this is asked when a job's resources are evaluated
+        (``lambda: not workflow.local_exec``).
     sizing : JobSizing
         Margins.
 
@@ -261,15 +271,30 @@ def cluster_resources(case_dir_of, sizing: JobSizing = DEFAULT_SIZING) -> dict:
     -------
     dict
         ``{"mem_mb": f(wildcards, attempt), "runtime": f(wildcards, attempt)}``, for
-        ``resources: **cluster_resources(...)`` in a rule.
+        ``resources: **cluster_resources(...)`` in a rule. Off the cluster they give
+        :data:`LOCAL_DECLARED` without costing the case.
     """
     def mem_mb(wildcards, attempt):
+        if not on_cluster():
+            return LOCAL_DECLARED["mem_mb"]
         return resources_for_case(case_dir_of(wildcards), attempt=attempt, sizing=sizing)["mem_mb"]
 
     def runtime(wildcards, attempt):
+        if not on_cluster():
+            return LOCAL_DECLARED["runtime"]
         return resources_for_case(case_dir_of(wildcards), attempt=attempt, sizing=sizing)["runtime"]
 
     return {"mem_mb": mem_mb, "runtime": runtime}
+
+
+def cluster_threads(case_dir_of, local_threads: int, on_cluster, sizing: JobSizing = DEFAULT_SIZING):
+    """Snakemake ``threads:`` of the solve rule: ``local_threads`` here, from the cost estimate on a cluster."""
+    def threads(wildcards):
+        if not on_cluster():
+            return int(local_threads)
+        return threads_for_case(case_dir_of(wildcards), sizing)
+
+    return threads
 
 
 def profile2default_resources(profile_dir: str | os.PathLike | None) -> list[str]:

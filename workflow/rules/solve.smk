@@ -1,4 +1,4 @@
-from bodysweep.workflow.cluster import cluster_resources, threads_for_case
+from bodysweep.workflow.cluster import cluster_resources, cluster_threads
 
 rule solve:
     input:
@@ -9,9 +9,10 @@ rule solve:
     log:
         f"{CASES}/{{case}}/logs/solve_{{port}}.log",
     # On a cluster (non-local executor) threads, memory and time limit come from the case's cost
-    # estimate (bodysweep.workflow.cluster); locally threads_per_job applies and mem_mb/runtime are unused.
-    threads: RUN.threads_per_job if workflow.local_exec else (lambda wc: threads_for_case(f"{CASES}/{wc.case}"))
-    resources: **({} if workflow.local_exec else cluster_resources(lambda wc: f"{CASES}/{wc.case}"))
+    # estimate (bodysweep.workflow.cluster); locally threads_per_job applies. Snakemake knows its
+    # executor only at job time, hence the callables.
+    threads: cluster_threads(lambda wc: f"{CASES}/{wc.case}", RUN.threads_per_job, lambda: not workflow.local_exec)
+    resources: **cluster_resources(lambda wc: f"{CASES}/{wc.case}", lambda: not workflow.local_exec)
     shell:
         '"{PY}" -m bodysweep.workflow.steps solve "{CASES}/{wildcards.case}" --port {wildcards.port}'
         ' --threads {threads} > "{log}" 2>&1'
