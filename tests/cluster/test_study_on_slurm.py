@@ -52,7 +52,9 @@ FAILING_LABEL_PART = "steps=1000"
 PARTITION = "bulk"  # the non-default partition of the local SLURM (start_slurm.sh)
 
 # columns that legitimately differ between two runs of the same case
-RUN_DEPENDENT = {"runtime_s", "reason"}
+# timesteps: the energy-decay end criterion is checked at intervals, so two runs of one case can stop
+# a check apart (seen: 8092 vs 7980 steps); results then agree to the tolerance used below.
+RUN_DEPENDENT = {"runtime_s", "reason", "timesteps"}
 
 
 def _test_profile(tmp: Path) -> Path:
@@ -141,7 +143,14 @@ def test_study_on_slurm_matches_local_run(slurm_cluster, slurm_env, tmp_path):
         x = x.sort_values(keys).reset_index(drop=True)
         y = y.sort_values(keys).reset_index(drop=True)
         cols = [c for c in x.columns if c not in RUN_DEPENDENT]
+        if name == "sar":
+            # the peak's location may jump between near-tied cube averages (seen: z -2.5 vs -10.9 mm with
+            # equal peak values to 1e-3); the peak value itself is compared
+            cols = [c for c in cols if c not in ("x_mm", "y_mm", "z_mm")]
         # the same FDTD case on the same machine. Observed here: differences up to 2e-4 relative between
         # the SLURM and the local run (the engine's energy-decay end criterion is checked at intervals and the
         # runs may stop a check apart); 1e-3 still catches any real divergence of inputs or post-processing.
-        pd.testing.assert_frame_equal(x[cols], y[cols], check_exact=False, rtol=1e-3, atol=1e-12, check_dtype=False)
+        # S-parameter real/imaginary parts cross zero over the band: there the check is absolute, 1e-4 in
+        # |S| (observed 4e-6), far below any change of inputs.
+        atol = 1e-4 if name == "sparams" else 1e-12
+        pd.testing.assert_frame_equal(x[cols], y[cols], check_exact=False, rtol=1e-3, atol=atol, check_dtype=False)
