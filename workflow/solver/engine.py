@@ -42,8 +42,22 @@ def boundary_conditions(boundary: str, pml_cells: int) -> list[str]:
     raise ValueError(f"boundary must be 'pml' or 'mur', got {boundary!r}")
 
 
+def parallel_plate_boundaries(e_axis: int, h_axis: int, absorber: str = "pml", pml_cells: int = 8) -> list[str]:
+    """Boundary names for a TEM plane wave between walls: PEC normal to E, PMC normal to H, absorber
+    (``"pml"`` or ``"mur"``) on the two faces normal to the third (propagation) axis.
+
+    Order as openEMS wants it: ``[x_min, x_max, y_min, y_max, z_min, z_max]``; axes 0, 1, 2 = x, y, z.
+    """
+    if sorted((int(e_axis), int(h_axis))) not in ([0, 1], [0, 2], [1, 2]):
+        raise ValueError(f"plane wave: E and H axes must be two different axes of 0, 1, 2, got {e_axis}, {h_axis}")
+    names = boundary_conditions(absorber, pml_cells)
+    names[2 * e_axis:2 * e_axis + 2] = ["PEC", "PEC"]
+    names[2 * h_axis:2 * h_axis + 2] = ["PMC", "PMC"]
+    return names
+
+
 def new_simulation(f0_Hz: float, fc_Hz: float, end_criterion: float, max_timesteps: int,
-                   boundary: str = "pml", pml_cells: int = 8):
+                   boundary: str = "pml", pml_cells: int = 8, boundaries: list[str] | None = None):
     """A fresh ``(fdtd, csx)`` pair: Gaussian pulse, stop criterion, absorbing boundary.
 
     Parameters
@@ -55,13 +69,16 @@ def new_simulation(f0_Hz: float, fc_Hz: float, end_criterion: float, max_timeste
         Energy ratio (linear, e.g. ``1e-5`` for -50 dB) at which the run stops.
     max_timesteps : int
         Hard cap on timesteps.
+    boundaries : list of str, optional
+        All six openEMS boundary names (e.g. from :func:`parallel_plate_boundaries`); replaces
+        ``boundary`` / ``pml_cells`` when given.
     """
     if not (0 < fc_Hz < f0_Hz):
         raise ValueError(f"excitation: need 0 < fc < f0, got f0={f0_Hz} Hz, fc={fc_Hz} Hz")
     ContinuousStructure, openEMS = load()
     fdtd = openEMS(NrTS=int(max_timesteps), EndCriteria=float(end_criterion))
     fdtd.SetGaussExcite(float(f0_Hz), float(fc_Hz))
-    fdtd.SetBoundaryCond(boundary_conditions(boundary, pml_cells))
+    fdtd.SetBoundaryCond(list(boundaries) if boundaries is not None else boundary_conditions(boundary, pml_cells))
     csx = ContinuousStructure()
     fdtd.SetCSX(csx)
     return fdtd, csx
