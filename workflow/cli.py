@@ -10,7 +10,8 @@ bodysweep verify  STUDY        integrity of case folders and tables
 
 Exit codes: 0 success; 2 the study file (or a case's geometry) is not usable, nothing written;
 3 some cases failed (run) or integrity problems (verify); 4 refused: the estimated cost is over the
-budget (give --accept-cost); 1 anything else (the pipeline itself failed).
+budget (give --accept-cost); 5 refused: another run of the same study is alive; 1 anything else (the
+pipeline itself failed).
 """
 from __future__ import annotations
 
@@ -19,7 +20,7 @@ import os
 import sys
 from pathlib import Path
 
-EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET = 0, 1, 2, 3, 4
+EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET, EXIT_BUSY = 0, 1, 2, 3, 4, 5
 
 
 def _versions() -> str:
@@ -89,8 +90,10 @@ def _check_geometry(dicts: list[dict]) -> int:
 def case_cost(case: dict) -> dict:
     """Mesh and cost estimate of one case (no solver run, no openEMS import).
 
-    Returns a dict ``cells, timestep_s, timesteps, memory_B, cpu_s`` (``cpu_s`` for all excited ports).
+    Returns a dict ``cells, timestep_s, timesteps, memory_B, cpu_s`` (``cpu_s`` for all excited ports)
+    and ``disk_B, scratch_B`` (:func:`bodysweep.workflow.budget.case_disk_estimate`).
     """
+    from .budget import case_disk_estimate
     from .solver import mesh
     from .solver.settings import settings_from_dict
 
@@ -101,7 +104,8 @@ def case_cost(case: dict) -> dict:
         from .solver import cost
     except ImportError:  # no cost model installed: the mesh still gives the cell count
         nan = float("nan")
-        return {"cells": float(plan.n_cells), "timestep_s": nan, "timesteps": nan, "memory_B": nan, "cpu_s": nan}
+        return {"cells": float(plan.n_cells), "timestep_s": nan, "timesteps": nan, "memory_B": nan, "cpu_s": nan,
+                **case_disk_estimate(case, float(plan.n_cells))}
     est = cost.estimate(plan, model, settings)
     get = (lambda k: est[k]) if isinstance(est, dict) else (lambda k: getattr(est, k))
 
@@ -113,10 +117,11 @@ def case_cost(case: dict) -> dict:
                 continue
         return default
 
-    return {"cells": pick("cells", "n_cells"), "timestep_s": pick("timestep_s", "timestep", "dt_s"),
+    cells = pick("cells", "n_cells")
+    return {"cells": cells, "timestep_s": pick("timestep_s", "timestep", "dt_s"),
             "timesteps": pick("timesteps", "n_timesteps"),
             "memory_B": pick("memory_B", "memory_bytes", "memory"),
-            "cpu_s": pick("cpu_s", "cpu_seconds", "cpu_time_s")}
+            "cpu_s": pick("cpu_s", "cpu_seconds", "cpu_time_s"), **case_disk_estimate(case, cells)}
 
 
 def _fmt_bytes(b: float) -> str:
@@ -146,7 +151,7 @@ def plan_rows(layout, entries, dicts, previous) -> list[dict]:
                 row.update(case_cost(d))
             except Exception as exc:  # a case the mesher refuses shows up as such, not as a crash
                 row.update({"cells": float("nan"), "timesteps": float("nan"), "memory_B": float("nan"),
-                            "cpu_s": float("nan"), "note": f"no estimate: {' '.join(str(exc).split())[:120]}"})
+                            "cpu_s": float("nan"), "disk_B": float("nan"), "scratch_B": float("nan"), "note": f"no estimate: {' '.join(str(exc).split())[:120]}"})
         rows.append(row)
     return rows
 
@@ -162,19 +167,40 @@ def study_cpu_budget_hours(study, given: float | None) -> float:
     return float(v) if v else 24.0
 
 
-def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float) -> list[str]:
+def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float,
+                    disk: tuple[float, str] | None = None) -> list[str]:
+    """Why the cases to run are over budget (empty: within). ``disk``: ``(budget GB, where it comes from)``."""
     todo = [r for r in rows if r["state"] in ("to run", "changed")]
     cpu = sum(r.get("cpu_s", 0.0) for r in todo if r.get("cpu_s", 0.0) == r.get("cpu_s", 0.0))
     out = []
     if cpu > max_cpu_hours * 3600.0:
-        out.append(f"estimated CPU time {cpu / 3600.0:.2f} h for {len(todo)} cases is over the budget of "
+        out.append(f"estimated CPU time {cpu / 3600.0:.3g} h for {len(todo)} cases is over the budget of "
                    f"{max_cpu_hours:g} h (--max-cpu-hours)")
     big = [r for r in todo if r.get("memory_B", 0.0) == r.get("memory_B", 0.0) and r.get("memory_B", 0.0) > max_memory_GB * 1e9]
     if big:
         worst = max(big, key=lambda r: r["memory_B"])
         out.append(f"{len(big)} cases need more memory than {max_memory_GB:g} GB (--max-memory-GB), the largest "
                    f"{_fmt_bytes(worst['memory_B'])} ({worst['case_id']}, {worst['cells']:.0f} cells)")
+    if disk is not None:
+        from .budget import disk_problem
+
+        p = disk_problem(rows, *disk)
+        if p:
+            out.append(p)
     return out
+
+
+def _refuse_over_budget(problems: list[str]) -> int:
+    """One error line naming every figure over its budget; exit code 4."""
+    _err("over budget: " + "; ".join(problems) + "; give --accept-cost to run anyway, or raise the budget")
+    return EXIT_BUDGET
+
+
+def _study_budget_problems(study, rows, a) -> list[str]:
+    from .budget import disk_budget_GB
+
+    return budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB,
+                           disk_budget_GB(study, a.max_disk_GB, a.results_dir))
 
 
 def _machine_memory_GB() -> float:
@@ -212,32 +238,61 @@ def cmd_plan(a) -> int:
     cpu = sum(cpus) if cpus else float("nan")
     mem = max([r["memory_B"] for r in todo if r["memory_B"] == r["memory_B"]] or [float("nan")])
     cells = sum(r["cells"] for r in todo if r["cells"] == r["cells"])
+    disks = [r.get("disk_B", float("nan")) for r in todo]
+    disk = sum(v for v in disks if v == v) if any(v == v for v in disks) else float("nan")
     print(f"total: {len(rows)} cases: " + ", ".join(f"{n} {s}" for s, n in counts.items())
-          + f"; to run: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}"
-          + f" (failed cases rerun only with `run --retry-failed`)")
-    problems = budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB)
+          + f"; to run: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}, "
+          + f"disk {_fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
+    problems = _study_budget_problems(study, rows, a)
     if problems and not a.accept_cost:
-        for p in problems:
-            _err(f"over budget: {p}")
-        _err("give --accept-cost to run anyway, or raise the budget")
-        return EXIT_BUDGET
+        return _refuse_over_budget(problems)
     return EXIT_OK
 
 
 def cmd_run(a) -> int:
-    from .pipeline import (mark_unfinished, prepare, previous_plan, reset_failed, run_snakemake, snakemake_args,
-                           case_states)
+    from .pipeline import previous_plan
 
     study, layout, entries, dicts = _expand(a.study, a.results_dir)
     _check_geometry(dicts)
     if not a.accept_cost:
         rows = plan_rows(layout, entries, dicts, previous_plan(layout))
-        problems = budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB)
+        problems = _study_budget_problems(study, rows, a)
         if problems:
-            for p in problems:
-                _err(f"over budget: {p}")
-            _err("give --accept-cost to run anyway, or raise the budget")
-            return EXIT_BUDGET
+            return _refuse_over_budget(problems)
+    from .runlock import StudyBusy
+
+    from datetime import datetime, timezone
+
+    log = layout.logs_dir / f"snakemake_{datetime.now(timezone.utc).strftime('%Y%m%dT%H%M%SZ')}.log"
+    try:
+        with _run_lock(layout, log) as lock:
+            return _run_locked(a, lock, log)
+    except StudyBusy as exc:
+        _err(str(exc))
+        return EXIT_BUSY
+
+
+def _run_lock(layout, log: Path):
+    """The study's run lock (see :mod:`bodysweep.workflow.runlock`); StudyBusy if another run holds it."""
+    from .runlock import StudyBusy, StudyLock, other_snakemake_runs
+
+    lock = StudyLock(layout, {"log": str(log)}).acquire()
+    others = other_snakemake_runs(layout)
+    if others:
+        lock.release()
+        raise StudyBusy(f"study {layout.root.name!r} is being run by snakemake (pid {', '.join(map(str, others))}) "
+                        f"started outside bodysweep; wait for it to end or stop it (results folder {layout.root})")
+    return lock
+
+
+def _run_locked(a, lock, log: Path) -> int:
+    from .pipeline import (mark_unfinished, prepare, reset_failed, run_snakemake, snakemake_args, case_states)
+    from .runlock import clear_interrupted
+
+    cleared = clear_interrupted(lock.layout, ".")
+    if cleared["snakemake_locks"] or cleared["temporaries"]:
+        print(f"an earlier run of this study was interrupted: removed {cleared['snakemake_locks']} stale "
+              f"Snakemake lock files and {cleared['temporaries']} leftover temporary files")
     prep = prepare(a.study, a.results_dir)
     if a.retry_failed:
         reset = reset_failed(prep.layout, prep.entries)
@@ -247,22 +302,24 @@ def cmd_run(a) -> int:
     n_failed_before = sum(s == "failed" for s, _ in states)
     if n_failed_before:
         print(f"{n_failed_before} cases failed in an earlier run and are kept as failed (--retry-failed reruns them)")
-    from datetime import datetime, timezone
-
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-    log = prep.layout.logs_dir / f"snakemake_{stamp}.log"
     from .cluster import site_resource_args
     from .pipeline import resolve_profile
 
     site = site_resource_args(resolve_profile(a.profile), a.partition, a.account)
     args = snakemake_args(a.study, results_dir=a.results_dir, workdir=".", cores=a.cores, jobs=a.jobs,
                           threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
-    rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".")
+    lock_fds = (lock.fd,)  # Snakemake holds the study lock too (runlock module docstring)
+    rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".", pass_fds=lock_fds)
+    if rc != 0 and _snakemake_lock_refused(log):
+        _err(f"snakemake refused to lock the working directory {Path('.').resolve()}: another snakemake run "
+             f"there uses files of this study; see {log}")
+        return EXIT_BUSY
     if rc != 0:
         marked = mark_unfinished(prep.layout, prep.entries)
         if marked:
             print(f"{len(marked)} cases ended without a result; recorded as failed. Collecting the rest.")
-            rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".")
+            rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
+                               pass_fds=lock_fds)
     if rc != 0:
         _err(f"the pipeline failed (snakemake exit {rc}); see {log}")
         return EXIT_ERROR
@@ -278,6 +335,15 @@ def cmd_run(a) -> int:
             print(f"  ... and {len(failed) - 20} more (see the summary table)")
         return EXIT_FAILED
     return EXIT_OK
+
+
+def _snakemake_lock_refused(log: Path) -> bool:
+    """Whether the last Snakemake run in ``log`` stopped because it could not lock the directory."""
+    try:
+        tail = log.read_bytes()[-20000:].decode(errors="replace")
+    except OSError:
+        return False
+    return "LockException" in tail or "Directory cannot be locked" in tail
 
 
 def _layout_of(a):
@@ -362,7 +428,8 @@ def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(prog="bodysweep", description="Parametric openEMS FDTD studies of radio links "
                                  "to implanted devices: S-parameters, averaged SAR, SAR-limited link budgets.",
                                  epilog="Exit codes: 0 ok, 1 pipeline error, 2 unusable study file, "
-                                        "3 failed cases / integrity problems, 4 over the cost budget.")
+                                        "3 failed cases / integrity problems, 4 over the cost budget, "
+                                        "5 another run of the study is alive.")
     ap.add_argument("--version", action="store_true",
                     help="print bodysweep, openEMS, CSXCAD, snakemake and numpy versions")
     sub = ap.add_subparsers(dest="command", metavar="COMMAND")
@@ -380,6 +447,9 @@ def build_parser() -> argparse.ArgumentParser:
                             "(default: the study's budget.max_cpu_hours, else 24 h)")
         p.add_argument("--max-memory-GB", type=float, default=round(0.8 * _machine_memory_GB(), 1),
                        help="refuse when a case needs more memory than this (default 80%% of this machine's)")
+        p.add_argument("--max-disk-GB", type=float, default=None,
+                       help="refuse when the estimated disk use of the cases to run exceeds this (default: the "
+                            "study's budget.max_disk_GB, else 90%% of the free space where the results go)")
         p.add_argument("--accept-cost", action="store_true", help="run even when over the budget")
 
     add("check", "check the study file (schema, geometry of every case) and count its cases; writes nothing",

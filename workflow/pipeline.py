@@ -252,6 +252,9 @@ def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results
         args += ["--jobs", str(int(jobs))]
     # see the module docstring: identity-based folders make modification times the only trigger needed
     args += ["--rerun-triggers", "mtime"]
+    # outputs of jobs killed with their run: every file is renamed into place complete, so an output
+    # Snakemake still marks incomplete is whole but possibly stale; redo its job instead of stopping
+    args += ["--rerun-incomplete"]
     if dry_run:
         args += ["--dry-run", "--quiet", "rules"]
     args += list(extra)
@@ -312,10 +315,10 @@ def format_duration(s: float) -> str:
 
 def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], log_path: Path,
                   workdir: str | Path = ".", poll_s: float = 3.0,
-                  echo: Callable[[str], None] = print) -> int:
+                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = ()) -> int:
     """Run Snakemake in a subprocess, its output to ``log_path``; print progress (cases done/total, ETA).
 
-    Returns Snakemake's exit code.
+    ``pass_fds``: file descriptors Snakemake inherits (the study's run lock). Returns Snakemake's exit code.
     """
     log_path.parent.mkdir(parents=True, exist_ok=True)
     todo = [e for e in entries if not (layout.case_dir(e["case_id"]) / "metrics.json").exists()]
@@ -323,7 +326,8 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
     echo(f"running {total} of {len(entries)} cases (log: {log_path})")
     last = None
     with open(log_path, "ab") as log:
-        proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir))
+        proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
+                                pass_fds=tuple(pass_fds))
         while True:
             rc = proc.poll()
             done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
