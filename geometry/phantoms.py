@@ -1,9 +1,11 @@
-"""Tissue phantoms: layered slab, layered cylinder (limb) and a liquid-filled box with a shell.
+"""Tissue phantoms: layered slab, layered cylinder (limb), a liquid-filled box with a shell, or none.
 
 Every phantom has its body surface (the face nearest the external antenna) at ``z = 0`` with
 tissue below, and is centred laterally on ``x = y = 0``. ``build()`` returns a :class:`PhantomBuild`:
 primitives with priorities (deeper / inner layers win), mesh hints at every layer interface
 (so that the mesher can put at least two cells across each layer) and the body bounds.
+:class:`NoPhantom` (``type: none``) leaves the antennas in air, for checks against free-space antenna
+theory; ``z = 0`` is then only the reference plane of the placements.
 """
 from __future__ import annotations
 
@@ -299,8 +301,35 @@ class LiquidBox:
         return construct(cls, d, "liquid box", shell_thickness_m=t, shell=diel)
 
 
-Phantom = LayeredSlab | LayeredCylinder | LiquidBox
-PHANTOM_TYPES: dict[str, type] = {c.type: c for c in (LayeredSlab, LayeredCylinder, LiquidBox)}
+@dataclass(frozen=True)
+class NoPhantom:
+    """No tissue at all: the antennas (and an implant antenna) sit in air.
+
+    For validation against free-space antenna theory (input impedance of a dipole, Friis link).
+    ``z = 0`` stays the reference plane: the external antenna above it, the implant ``depth_m``
+    below it, both in air. There is no SAR (no tissue cell); a scene without tissue has empty
+    body bounds at the origin.
+    """
+
+    type = "none"
+
+    def build(self) -> PhantomBuild:
+        return PhantomBuild((), (), ((0.0, 0.0, 0.0), (0.0, 0.0, 0.0)))
+
+    def contains(self, points) -> np.ndarray:
+        """Whether points (shape (n, 3)) lie in tissue: never; returns shape (n,) bool."""
+        return np.zeros(len(np.atleast_2d(np.asarray(points, dtype=float))), dtype=bool)
+
+    def to_dict(self) -> dict:
+        return {"type": self.type}
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> "NoPhantom":
+        return construct(cls, d, "phantom none")
+
+
+Phantom = LayeredSlab | LayeredCylinder | LiquidBox | NoPhantom
+PHANTOM_TYPES: dict[str, type] = {c.type: c for c in (LayeredSlab, LayeredCylinder, LiquidBox, NoPhantom)}
 
 
 def phantom_from_dict(d: Mapping) -> Phantom:

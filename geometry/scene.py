@@ -20,7 +20,7 @@ import numpy as np
 from .antennas import CAPSULE_MATERIAL, CASING_MATERIAL, ExternalAntenna, ImplantAntenna
 from .concentrators import CONCENTRATOR_TYPES, Concentrator, concentrator_from_dict
 from .model import SceneModel
-from .phantoms import SHELL_MATERIAL, LayeredCylinder, LiquidBox, Phantom, phantom_from_dict
+from .phantoms import SHELL_MATERIAL, LayeredCylinder, LiquidBox, NoPhantom, Phantom, phantom_from_dict
 from .primitives import Box, Cylinder, Primitive, Vec3
 from .shapes import distance_to_box, sample_points
 from .specs import positive
@@ -55,7 +55,8 @@ class Scene:
 
     Parameters
     ----------
-    phantom : LayeredSlab, LayeredCylinder or LiquidBox
+    phantom : LayeredSlab, LayeredCylinder, LiquidBox or NoPhantom
+        ``NoPhantom`` (``type: none``): antennas in air, the implant antenna too (free-space checks).
     external : ExternalAntenna
         Port 1.
     implant : ImplantAntenna or None
@@ -97,7 +98,7 @@ class Scene:
         refs = []
         if isinstance(ph, LiquidBox):
             refs.append(("phantom liquid", ph.liquid))
-        else:
+        elif not isinstance(ph, NoPhantom):
             refs += [(f"phantom layer {i}", l.tissue) for i, l in enumerate(ph.layers)]
             if isinstance(ph, LayeredCylinder):
                 refs.append(("phantom core", ph.core_tissue))
@@ -126,7 +127,11 @@ class Scene:
         if lo[2] < -1e-12:
             raise ValueError(f"external antenna overlaps the body: its lowest point is at z = {lo[2]:.4g} m "
                              f"(standoff_m = {self.external.standoff_m} m); it must stay at z >= 0")
-        if self.implant is not None:
+        if self.implant is not None and isinstance(self.phantom, NoPhantom):
+            imp = self.implant.build()  # in air: nothing to be inside; only the concentrators' clearance
+            keep = [p for p in imp.primitives if p.name == "implant_capsule"] or list(imp.primitives)
+            klo, khi = (np.min([p.bounds()[0] for p in keep], 0), np.max([p.bounds()[1] for p in keep], 0))
+        elif self.implant is not None:
             imp = self.implant.build()
             keep = [p for p in imp.primitives if p.name == "implant_capsule"] or list(imp.primitives)
             pts = np.concatenate([_outline_points(p) for p in keep])

@@ -243,6 +243,10 @@ def scene_schema() -> dict:
         "shell": _obj("Shell on the exposed face.", {"thickness_mm": _len("Shell thickness"), **DIELECTRIC_PROPS},
                       ["thickness_mm", "eps_r"], **NOT_BOTH_LOSSES),
     }, ["type", "liquid", "size_x_mm", "size_y_mm", "depth_mm", "shell"])
+    defs["none"] = _obj("No phantom: the antennas, the implant antenna too, sit in air (checks against "
+                        "free-space antenna theory); z = 0 is only the reference plane; no SAR.", {
+        "type": _typed("none", "No phantom."),
+    }, ["type"])
     defs["external_dipole"] = _obj("External dipole above the body.", {**_dipole_props(True), **EXTERNAL_PLACE},
                                    ["type", "length_mm", "feed_gap_mm"])
     defs["external_loop"] = _obj("External loop above the body.", {**LOOP_PROPS, **EXTERNAL_PLACE},
@@ -267,8 +271,9 @@ def scene_schema() -> dict:
         "additionalProperties": False,
         "required": ["phantom", "external"],
         "properties": {
-            "phantom": _dispatch("The tissue phantom.", {k: k for k in ("layered_slab", "layered_cylinder",
-                                                                        "liquid_box")}),
+            "phantom": _dispatch("The tissue phantom; type none leaves every antenna in air (free-space "
+                                 "checks).", {k: k for k in ("layered_slab", "layered_cylinder", "liquid_box",
+                                                             "none")}),
             "external": _dispatch("The external antenna (port 1).", {"dipole": "external_dipole",
                                                                     "loop": "external_loop"}),
             "implant": _dispatch("The implant antenna (port 2); leave out for a scene without implant.",
