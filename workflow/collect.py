@@ -245,6 +245,8 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         # S-parameters: the band from the Touchstone file, else the case frequency from metrics.json
         block = None
         ts = cdir / "sparams.s2p"
+        if not ts.exists() and (cdir / "sparams.s1p").exists():  # a scene without implant is a one-port
+            ts = cdir / "sparams.s1p"
         if band and row["status"] == "ok" and ts.exists():
             try:
                 fb, Sb = touchstone2arrays(ts)

@@ -101,7 +101,7 @@ def plot_peak_sar(summary: pd.DataFrame, path: Path) -> Path | None:
     """Bars of peak averaged SAR per watt of input power for every finished case."""
     cols = [c for c in summary.columns if c.startswith("peak_SAR_") and c.endswith("_W_per_kg_per_W")]
     ok = summary[summary["status"].isin(["ok", "warning"])]
-    if not cols or ok.empty:
+    if not cols or ok.empty or not np.any(ok[cols].to_numpy(float) > 0):  # no tissue (phantom none): no SAR
         return None
     plt = _plt()
     ok = ok.sort_values(cols[0], ascending=False).head(MAX_BARS)

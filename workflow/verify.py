@@ -46,6 +46,8 @@ def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
             for name in ON_SUCCESS:
+                if name == "sparams.s2p" and (d / "sparams.s1p").exists():  # one-port scene (no implant)
+                    continue
                 if not (d / name).exists():
                     out.append(f"{cid}: status {m.get('status')} but {name} missing")
             for p in entry.get("ports", [1]):
