@@ -27,9 +27,11 @@ with each cell's conductivity, density and volume), read by the same reader as t
 * the surface reflection coefficient: in every air cell between source and surface
   ``Gamma_i = (E_tot - E_inc) / E_inc * exp(2 j k z_i)`` (incident ``~exp(+j k z)``, reflected
   ``~exp(-j k z)``, ``exp(+j w t)`` convention as openEMS's DFT ``int f(t) exp(-j w t) dt``); the
-  wavenumber ``k`` is measured from the phase step of ``E_inc`` between neighbouring air cells, which
-  takes the grid's own numerical dispersion out of the transfer to ``z = 0``. ``Gamma`` is their mean,
-  their spread a check.
+  wavenumber ``k`` is the grid's own numerical wavenumber in air from the Yee dispersion relation
+  along one axis, ``sin(k dz / 2) / dz = sin(w dt / 2) / (c dt)`` (Taflove & Hagness, Computational
+  Electrodynamics, 3rd ed., sec. 4.3, 1-D numerical dispersion; the air between surface and source is
+  meshed uniformly), so the transfer to ``z = 0`` carries no dispersion error. ``Gamma`` is their mean,
+  their spread a check; the wavenumber measured from the phase of ``E_inc`` is kept as a check too.
 
 Timestep. Both runs are forced to the same timestep, 0.99 of the vacuum Courant limit of the mesh
 (stable in any medium with ``eps_r >= 1``). openEMS otherwise picks a material-dependent step (its
@@ -42,7 +44,7 @@ Run length. openEMS checks its energy-decay criterion only when it prints progre
 of wall time), so a run of this size (a few thousand cells, about a second) would never stop on it.
 The run length is therefore set from the physics: the Gaussian pulse plus ``ring_down_transits``
 passes of the whole domain at the slowest speed (its optical length ``sum dz sqrt(eps_r)``), turned
-into timesteps with the Courant step of the mesh (openEMS's step is within 0.1 % of it). Two
+into timesteps with the forced timestep. Two
 time-domain probes of ``E_x`` (in air just above the surface, in the middle of the last layer) check
 that the field has rung down: :attr:`PlaneWaveResult.tail_ratio` is the largest ``|E|`` over the last
 10 % of the record relative to the peak.
@@ -61,7 +63,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Layer", "tissue_layer", "PlaneWaveSetup", "PlaneWaveResult", "plane_wave_mesh", "solve_plane_wave"]
+__all__ = ["Layer", "tissue_layer", "PlaneWaveSetup", "PlaneWaveResult", "plane_wave_mesh", "timestep_s", "run_timesteps",
+           "solve_plane_wave", "reference_solution", "sar_comparison"]
 
 C0 = 299792458.0  # m/s, exact (SI)
 ETA0 = 376.730313668  # ohm, CODATA 2018 (mu0 / eps0 with their CODATA values)
@@ -283,7 +286,9 @@ class PlaneWaveResult:
     Attributes
     ----------
     z_m : ndarray, shape (nz,)
-        Cell centres along ``z`` of the dumped interior.
+        Cell centres along ``z`` of the dumped cells.
+    z_edges_m : ndarray, shape (nz + 1,)
+        Their edges.
     layer_index : ndarray of int, shape (nz,)
         Layer of each cell (0 = top layer), -1 in air.
     e_total, e_incident : ndarray of complex, shape (nz,)
@@ -295,7 +300,9 @@ class PlaneWaveResult:
     gamma_spread : float
         Largest ``|Gamma_i - Gamma|`` over the air cells used.
     k_air_per_m : float
-        Measured numerical wavenumber in air.
+        Numerical wavenumber in air used for the transfer of Gamma (Yee dispersion relation).
+    k_air_measured_per_m : float
+        The same, measured from the phase progression of ``E_inc`` (least-squares slope).
     cells, timesteps : int
         Cells of the mesh; timesteps of the stack run.
     runtime_s : float
@@ -306,6 +313,7 @@ class PlaneWaveResult:
     """
 
     z_m: np.ndarray
+    z_edges_m: np.ndarray
     layer_index: np.ndarray
     e_total: np.ndarray
     e_incident: np.ndarray
@@ -313,6 +321,7 @@ class PlaneWaveResult:
     gamma: complex
     gamma_spread: float
     k_air_per_m: float
+    k_air_measured_per_m: float
     cells: int
     timesteps: int
     runtime_s: float
@@ -377,15 +386,19 @@ def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1, timeout_
     air = np.flatnonzero((z > 0) & (z < zs))[2:-2]
     if air.size < 4:
         raise ValueError(f"plane wave: only {air.size} air cells between surface and source; raise air_above_m")
-    dz = np.diff(z[air])
-    steps = np.angle(ex_i[air[1:]] / ex_i[air[:-1]])
-    k = float(np.mean(steps / dz))
+    dz = float(np.mean(np.diff(z[air])))
+    dt = timestep_s(setup)
+    k = float(2 / dz * np.arcsin(dz / (C0 * dt) * np.sin(np.pi * setup.f_Hz * dt)))
+    k_meas = float(np.polyfit(z[air], np.unwrap(np.angle(ex_i[air])), 1)[0])
     g_i = (ex_t[air] - ex_i[air]) / ex_i[air] * np.exp(2j * k * z[air])
     gamma = complex(np.mean(g_i))
     s_inc = float(np.mean(np.abs(ex_i[air]) ** 2)) / (2 * ETA0)
-    return PlaneWaveResult(z_m=z, layer_index=layer, e_total=ex_t, e_incident=ex_i,
+    from .run import centres2edges
+
+    return PlaneWaveResult(z_m=z, z_edges_m=centres2edges(z, m["lines_z"]), layer_index=layer, e_total=ex_t, e_incident=ex_i,
                            sar_per_incident_W_m2=sar / s_inc, gamma=gamma,
                            gamma_spread=float(np.max(np.abs(g_i - gamma))), k_air_per_m=k,
+                           k_air_measured_per_m=k_meas,
                            cells=int(info_t["cells"] or 0), timesteps=int(info_t["timesteps"] or 0),
                            runtime_s=runtime, tail_ratio=max(info_t["tail_ratio"], info_i["tail_ratio"]),
                            logs={"stack": str(work / "stack" / "console.log"),
@@ -401,3 +414,47 @@ if __name__ == "__main__":
     ap.add_argument("--threads", type=int, default=1)
     a = ap.parse_args()
     sys.exit(_child(a.spec, a.sim_dir, a.threads))
+
+
+def reference_solution(setup: PlaneWaveSetup):
+    """The analytic transmission-line solution of the same stack (air above and below), from
+    :func:`bodysweep.workflow.reference.layered_planewave.solve_layers`."""
+    from bodysweep.workflow.reference.layered_planewave import solve_layers
+
+    return solve_layers(setup.f_Hz, [(L.eps_r, L.sigma_S_per_m, L.thickness_m) for L in setup.layers],
+                        below=(1.0, 0.0))
+
+
+def sar_comparison(setup: PlaneWaveSetup, result: PlaneWaveResult, exclude_cells: int = 1) -> dict:
+    """FDTD SAR profile against the analytic one at the same cell centres.
+
+    Parameters
+    ----------
+    exclude_cells : int
+        Cells left out on each side of every interface (the FDTD material averaging there).
+
+    Returns
+    -------
+    dict
+        ``ratio`` (nz,) FDTD / analytic SAR (NaN outside the compared cells); ``max_error`` per layer
+        name: largest ``|ratio - 1|``; ``cells`` per layer name: number of compared cells;
+        ``analytic`` (nz,) the analytic SAR per unit incident power density (W/kg per W/m^2, 0 in air).
+    """
+    from bodysweep.workflow.reference.layered_planewave import ETA0 as ETA0_REF, sar_profile
+
+    sol = reference_solution(setup)
+    stack = [(L.eps_r, L.sigma_S_per_m, L.thickness_m) for L in setup.layers]
+    rho = [L.density_kg_m3 for L in setup.layers]
+    z, idx = result.z_m, result.layer_index
+    analytic = np.zeros(z.shape)
+    t = idx >= 0
+    analytic[t] = sar_profile(sol, -z[t], stack, rho) / (0.5 / ETA0_REF)  # unit incident E -> per W/m^2
+    ratio = np.full(z.shape, np.nan)
+    max_err, cells = {}, {}
+    for i, L in enumerate(setup.layers):
+        k = np.flatnonzero(idx == i)
+        k = k[exclude_cells:k.size - exclude_cells] if exclude_cells else k
+        ratio[k] = result.sar_per_incident_W_m2[k] / analytic[k]
+        max_err[L.name] = float(np.max(np.abs(ratio[k] - 1))) if k.size else float("nan")
+        cells[L.name] = int(k.size)
+    return {"ratio": ratio, "max_error": max_err, "cells": cells, "analytic": analytic}
