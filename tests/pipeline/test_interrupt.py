@@ -1,0 +1,93 @@
+"""A sweep killed with SIGKILL in the middle of a solver job, then run again (real openEMS, tiny study).
+
+1. The tiny study with one depth runs to the end: one finished case.
+2. The study gains a second depth; `bodysweep run` starts in its own process group, and when the new
+   case's engine is running (its scratch folder exists, no status yet, a solver child process alive)
+   the whole group gets SIGKILL.
+3. Every file left under its final name opens with the library of its format (json, h5py, scikit-rf,
+   pandas), the killed case has no status or metrics, and Snakemake's lock files are still there.
+4. The second run removes the stale locks and temporaries, leaves the finished case's files untouched
+   (same mtime and SHA-256), solves the killed case from scratch; tables are complete, verify passes.
+"""
+import json
+import os
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from helpers_reliability import (fingerprint, final_files, group_alive, kill_group, open_every_file, plan_ids, run,
+                                 start_run, tiny_study, wait_for)
+
+pytestmark = [pytest.mark.pipeline, pytest.mark.solver, pytest.mark.timeout(600)]
+
+
+def _solver_child_alive(pgid: int) -> bool:
+    for pid in group_alive(pgid):
+        try:
+            args = Path(f"/proc/{pid}/cmdline").read_bytes().split(b"\0")
+        except OSError:
+            continue
+        if b"bodysweep.workflow.solver.run" in args and b"child" in args:
+            return True
+    return False
+
+
+def test_sigkill_mid_solve_then_rerun(tmp_path):
+    study = tiny_study(tmp_path / "study.yaml", "tiny_kill", depths=(6,))
+    first = run(["run", str(study), "--cores", "2"], tmp_path)
+    assert first.returncode == 0, first.stdout + first.stderr
+    root = tmp_path / "results" / "tiny_kill"
+    (done_id,) = plan_ids(root)
+    done_dir = root / "cases" / done_id
+    before = fingerprint(done_dir)
+
+    tiny_study(study, "tiny_kill", depths=(6, 9))
+    proc = start_run(study, tmp_path, "--cores", "2")
+    pgid = os.getpgid(proc.pid)
+    try:
+        def killed_case_running():
+            if not (root / "plan.json").exists():
+                return None
+            new = [c for c in plan_ids(root) if c != done_id]
+            if len(new) != 1:
+                return None
+            exc = root / "cases" / new[0] / "excite_1"
+            running = (exc / ".engine_run" / "sim").is_dir() and not (exc / "status.json").exists()
+            return new[0] if running and _solver_child_alive(pgid) else None
+
+        killed_id = wait_for(killed_case_running, 240, "the new case's engine to run", proc=proc)
+    finally:
+        if proc.poll() is None:
+            kill_group(proc)
+    assert proc.returncode == -9  # SIGKILL, not a normal end
+    killed_dir = root / "cases" / killed_id
+
+    # nothing half-written under a final name: every file opens with its format's own reader
+    counts = open_every_file(root)
+    assert counts[".json"] >= 4 and counts[".h5"] >= 3 and counts[".s2p"] == 1, counts
+    assert not (killed_dir / "excite_1" / "status.json").exists()
+    assert not (killed_dir / "metrics.json").exists()
+    assert fingerprint(done_dir) == before  # the killed run did not touch the finished case
+    stale = list((tmp_path / ".snakemake" / "locks").glob("*.lock"))
+    assert stale, "SIGKILL should have left Snakemake's lock files behind"
+    assert (killed_dir / "excite_1" / ".engine_run").is_dir()  # the engine's scratch is still there
+
+    again = run(["run", str(study), "--cores", "2"], tmp_path)
+    out = again.stdout + again.stderr
+    assert again.returncode == 0, out
+    assert "interrupted" in again.stdout and "stale Snakemake lock" in again.stdout
+    assert "running 1 of 2 cases" in again.stdout  # only the killed case was scheduled
+    assert fingerprint(done_dir) == before  # finished case: same files, same mtimes, same bytes
+    st = json.loads((killed_dir / "excite_1" / "status.json").read_text())
+    assert st["status"] == "ok" and st["decay_reached"], st
+    assert json.loads((killed_dir / "metrics.json").read_text())["status"] == "ok"
+    assert not list((tmp_path / ".snakemake" / "locks").glob("*.lock"))
+    assert not [p for p in root.rglob("*") if p.name.startswith(".")]  # no temporaries, no scratch left
+    s = pd.read_parquet(root / "tables" / "summary.parquet")
+    assert sorted(s["case_id"]) == sorted([done_id, killed_id]) and (s["status"] == "ok").all()
+    assert s["S11_dB"].notna().all() and s["S21_dB"].notna().all()
+    open_every_file(root)
+    v = run(["verify", str(study)], tmp_path)
+    assert v.returncode == 0, v.stdout + v.stderr
+    assert len(final_files(root)) > 20
