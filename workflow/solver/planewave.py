@@ -29,7 +29,7 @@ with each cell's conductivity, density and volume), read by the same reader as t
   ``~exp(-j k z)``, ``exp(+j w t)`` convention as openEMS's DFT ``int f(t) exp(-j w t) dt``); the
   wavenumber ``k`` is the grid's own numerical wavenumber in air from the Yee dispersion relation
   along one axis, ``sin(k dz / 2) / dz = sin(w dt / 2) / (c dt)`` (Taflove & Hagness, Computational
-  Electrodynamics, 3rd ed., sec. 4.3, 1-D numerical dispersion; the air between surface and source is
+  Electrodynamics, 3rd ed., ch. 4, Yee-grid dispersion along an axis, chapter from memory; the air between surface and source is
   meshed uniformly), so the transfer to ``z = 0`` carries no dispersion error. ``Gamma`` is their mean,
   their spread a check; the wavenumber measured from the phase of ``E_inc`` is kept as a check too.
 
