@@ -46,8 +46,8 @@ CI_CELLS_PER_WAVELENGTH = 40  # see the mesh-refinement note
 def test_mesh_resolves_every_layer_and_puts_interfaces_on_lines():
     # no solver: planar interfaces on mesh lines (common practice in FDTD: no staircase, the engine averages
     # the two materials on the interface edges), cells no larger than lambda / N in each layer (the mesh
-    # density's definition, lambda = 2 pi / beta of the lossy medium, Pozar, Microwave Engineering, 4th ed., sec. 1.4, plane waves in a lossy medium) and at least
-    # min_cells_per_layer across
+    # density's definition, lambda = 2 pi / beta of the lossy medium: Pozar, Microwave Engineering, 4th ed.,
+    # sec. 1.4, plane waves in a lossy medium) and at least min_cells_per_layer across
     f = 2450e6
     setup = PlaneWaveSetup(f, tuple(tissue_layer(n, f, d) for n, d in STACK), cells_per_wavelength=20)
     m = plane_wave_mesh(setup)
@@ -131,8 +131,9 @@ def test_incident_wave_is_a_clean_plane_wave(solved):
     mag = np.abs(r.e_incident[air])
     # lossless air: constant amplitude (analytic); 1 % allows the PML's small reflection (common practice)
     assert mag.max() / mag.min() <= 1.01
-    # its phase advances at the grid's numerical wavenumber, Yee 1-D dispersion relation (Taflove & Hagness,
-    # Computational Electrodynamics, 3rd ed., ch. 4, Yee-grid dispersion along an axis; chapter from memory), which is 2 pi f / c0 within 0.1 % on this mesh
+    # its phase advances at the grid's numerical wavenumber, Yee dispersion relation along an axis (Taflove &
+    # Hagness, Computational Electrodynamics, 3rd ed., ch. 4; chapter from memory), which is 2 pi f / c0
+    # within 0.1 % on this mesh
     assert r.k_air_measured_per_m == pytest.approx(r.k_air_per_m, rel=0.005)
     assert r.k_air_per_m == pytest.approx(2 * np.pi * setup.f_Hz / 299_792_458.0, rel=1e-3)
     # the run was long enough: the field has rung down to -60 dB of its peak at both probes

@@ -29,8 +29,8 @@ with each cell's conductivity, density and volume), read by the same reader as t
   ``~exp(-j k z)``, ``exp(+j w t)`` convention as openEMS's DFT ``int f(t) exp(-j w t) dt``); the
   wavenumber ``k`` is the grid's own numerical wavenumber in air from the Yee dispersion relation
   along one axis, ``sin(k dz / 2) / dz = sin(w dt / 2) / (c dt)`` (Taflove & Hagness, Computational
-  Electrodynamics, 3rd ed., ch. 4, Yee-grid dispersion along an axis, chapter from memory; the air between surface and source is
-  meshed uniformly), so the transfer to ``z = 0`` carries no dispersion error. ``Gamma`` is their mean,
+  Electrodynamics, 3rd ed., ch. 4, chapter from memory; the air between surface and source is meshed
+  uniformly), so the transfer to ``z = 0`` carries no dispersion error. ``Gamma`` is their mean,
   their spread a check; the wavenumber measured from the phase of ``E_inc`` is kept as a check too.
 
 Timestep. Both runs are forced to the same timestep, 0.99 of the vacuum Courant limit of the mesh
@@ -44,10 +44,10 @@ Run length. openEMS checks its energy-decay criterion only when it prints progre
 of wall time), so a run of this size (a few thousand cells, about a second) would never stop on it.
 The run length is therefore set from the physics: the Gaussian pulse plus ``ring_down_transits``
 passes of the whole domain at the slowest speed (its optical length ``sum dz sqrt(eps_r)``), turned
-into timesteps with the forced timestep. Two
-time-domain probes of ``E_x`` (in air just above the surface, in the middle of the last layer) check
-that the field has rung down: :attr:`PlaneWaveResult.tail_ratio` is the largest ``|E|`` over the last
-10 % of the record relative to the peak.
+into timesteps with the forced timestep. Two time-domain probes of ``E_x`` (in air just above the
+surface, in the middle of the last layer) check that the field has rung down:
+:attr:`PlaneWaveResult.tail_ratio` is the largest ``|E|`` over the last 10 % of the record relative to
+the peak.
 
 The engine runs in a child process (``python -m bodysweep.workflow.solver.planewave SPEC.json SIM_DIR``)
 like every case run: the engine changes the working directory and may call ``exit()``.
@@ -63,8 +63,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Layer", "tissue_layer", "PlaneWaveSetup", "PlaneWaveResult", "plane_wave_mesh", "timestep_s", "run_timesteps",
-           "solve_plane_wave", "reference_solution", "sar_comparison"]
+__all__ = ["Layer", "tissue_layer", "PlaneWaveSetup", "PlaneWaveResult", "plane_wave_mesh", "timestep_s",
+           "run_timesteps", "solve_plane_wave", "reference_solution", "sar_comparison"]
 
 C0 = 299792458.0  # m/s, exact (SI)
 ETA0 = 376.730313668  # ohm, CODATA 2018 (mu0 / eps0 with their CODATA values)
@@ -357,7 +357,8 @@ def _run_child(spec: dict, work: Path, threads: int, timeout_s: float | None) ->
     return arrays, info
 
 
-def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1, timeout_s: float | None = 600) -> PlaneWaveResult:
+def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1,
+                     timeout_s: float | None = 600) -> PlaneWaveResult:
     """Run the ``stack`` and ``incident`` runs of ``setup`` in ``work_dir`` and evaluate them.
 
     Raises
@@ -395,7 +396,8 @@ def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1, timeout_
     s_inc = float(np.mean(np.abs(ex_i[air]) ** 2)) / (2 * ETA0)
     from .run import centres2edges
 
-    return PlaneWaveResult(z_m=z, z_edges_m=centres2edges(z, m["lines_z"]), layer_index=layer, e_total=ex_t, e_incident=ex_i,
+    return PlaneWaveResult(z_m=z, z_edges_m=centres2edges(z, m["lines_z"]), layer_index=layer, e_total=ex_t,
+                           e_incident=ex_i,
                            sar_per_incident_W_m2=sar / s_inc, gamma=gamma,
                            gamma_spread=float(np.max(np.abs(g_i - gamma))), k_air_per_m=k,
                            k_air_measured_per_m=k_meas,
