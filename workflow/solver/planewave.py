@@ -307,6 +307,11 @@ class PlaneWaveResult:
         Cells of the mesh; timesteps of the stack run.
     runtime_s : float
         Wall time of both runs.
+    lateral_spread : float
+        Largest ``(max - min) / mean`` of ``|E_x|`` across the cross-section, over all depths (0 for a TEM
+        wave between the walls).
+    cross_polar_ratio : float
+        Largest ``|E_y|, |E_z|`` relative to the largest ``|E_x|`` (0 for the TEM wave).
     tail_ratio : float
         Largest ``|E|`` of the decay probes over the last 10 % of the stack run relative to their peak
         (module notes); ``< 1e-3`` means the field has rung down.
@@ -325,6 +330,8 @@ class PlaneWaveResult:
     cells: int
     timesteps: int
     runtime_s: float
+    lateral_spread: float
+    cross_polar_ratio: float
     tail_ratio: float
     logs: dict = field(default_factory=dict)
 
@@ -377,6 +384,9 @@ def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1,
     z = tot["z_m"]
     ex_t = tot["E_V_per_m"][0].mean(axis=(0, 1))
     ex_i = inc["E_V_per_m"][0].mean(axis=(0, 1))
+    mag = np.abs(tot["E_V_per_m"][0])
+    lateral = float(np.max((mag.max(axis=(0, 1)) - mag.min(axis=(0, 1))) / mag.mean(axis=(0, 1))))
+    cross = float(np.max(np.abs(tot["E_V_per_m"][1:])) / np.max(mag))
     sar = local_sar(tot["E_V_per_m"], tot["sigma_S_per_m"], tot["density_kg_m3"]).mean(axis=(0, 1))
     tops = m["interfaces_z_m"]
     layer = np.full(z.shape, -1, dtype=int)
@@ -402,7 +412,8 @@ def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1,
                            gamma_spread=float(np.max(np.abs(g_i - gamma))), k_air_per_m=k,
                            k_air_measured_per_m=k_meas,
                            cells=int(info_t["cells"] or 0), timesteps=int(info_t["timesteps"] or 0),
-                           runtime_s=runtime, tail_ratio=max(info_t["tail_ratio"], info_i["tail_ratio"]),
+                           runtime_s=runtime, lateral_spread=lateral, cross_polar_ratio=cross,
+                           tail_ratio=max(info_t["tail_ratio"], info_i["tail_ratio"]),
                            logs={"stack": str(work / "stack" / "console.log"),
                                  "incident": str(work / "incident" / "console.log")})
 
