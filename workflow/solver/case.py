@@ -143,12 +143,16 @@ def sar_per_watt(raw: dict, p_accepted_W: float) -> dict:
 def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarray) -> list[dict]:
     """Largest input power per exposure limit and the power then delivered to the implant.
 
+    The numbers come from :func:`bodysweep.workflow.post.linkbudget.max_input_power` and
+    :func:`~bodysweep.workflow.post.linkbudget.delivered_power` (the one implementation); a value
+    they refuse (no peak, one-port scene, ``|S11| >= 1``) is ``None`` here.
+
     Parameters
     ----------
     limits : list of dict
         ``mass_kg``, ``limit_W_per_kg``, ``source``.
     peaks : dict of float to float
-        Peak averaged SAR per W accepted, by averaging mass (kg).
+        Peak averaged SAR per W accepted, by averaging mass (kg, rounded to 9 digits).
     S0 : numpy.ndarray, complex, shape (n, n)
         S-matrix at the case frequency.
 
@@ -157,20 +161,26 @@ def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarr
     list of dict
         Each limit plus ``max_input_power_W`` (accepted at port 1, = limit / peak) and
         ``delivered_power_W``: power into the implant port's matched load (``Z0``) at that input,
-        ``P_in |S21|^2 / (1 - |S11|^2)`` (power waves: delivered/accepted with port 2 terminated in Z0;
-        Pozar, Microwave Engineering, 4th ed., sec. 4.3 / 11.1 power-wave relations).
+        ``P_in |S21|^2 / (1 - |S11|^2)`` (see :mod:`bodysweep.workflow.post.linkbudget`).
     """
+    from bodysweep.workflow.post.linkbudget import delivered_power, max_input_power
+
+    S0 = np.asarray(S0, dtype=complex)
     out = []
-    s11 = S0[0, 0]
-    s21 = S0[1, 0] if S0.shape[0] > 1 else np.nan
-    g = abs(s21) ** 2 / (1.0 - abs(s11) ** 2) if abs(s11) < 1 else np.nan
     for lim in limits:
-        m = round(float(lim["mass_kg"]), 9)
-        peak = peaks.get(m, np.nan)
-        p_in = float(lim["limit_W_per_kg"]) / peak if peak and peak > 0 else np.nan
+        peak = peaks.get(round(float(lim["mass_kg"]), 9), np.nan)
+        try:
+            p_in = max_input_power(peak, lim["limit_W_per_kg"])
+        except ValueError:
+            p_in = None
+        p_del = None
+        if p_in is not None and S0.shape[0] >= 2:
+            try:
+                p_del = _finite_or_none(delivered_power(p_in, S0[:2, :2]))
+            except ValueError:
+                p_del = None
         out.append({"mass_kg": float(lim["mass_kg"]), "limit_W_per_kg": float(lim["limit_W_per_kg"]),
-                    "source": str(lim.get("source", "")), "max_input_power_W": _finite_or_none(p_in),
-                    "delivered_power_W": _finite_or_none(p_in * g)})
+                    "source": str(lim.get("source", "")), "max_input_power_W": p_in, "delivered_power_W": p_del})
     return out
 
 
@@ -185,23 +195,37 @@ def _versions() -> dict:
 
 
 def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:
+    """The engine's own averaged SAR peaks (if it was run) beside ours, per W accepted at port 1.
+
+    ``ours`` maps mass (kg) to our peak (W/kg per W). Per mass: the engine's peak and its location,
+    ours and the relative difference ``(engine - ours) / ours``, or the reason it is missing.
+    """
     st_path = case_dir / "excite_1" / "solver_sar_status.json"
     if not st_path.exists():
         return {"status": "not run"}
     st = _read_json(st_path)
-    if st.get("status") != "ok":
-        return {"status": "failed", "reason": st.get("reason")}
+    out = {"status": st.get("status"), "reason": st.get("reason"), "method": "openEMS IEEE_62704",
+           "note": "the engine's own average, recorded beside ours as information, not used", "by_mass": []}
+    h5_path = case_dir / "excite_1" / "solver_sar.h5"
     import h5py
 
-    rows = []
-    with h5py.File(case_dir / "excite_1" / "solver_sar.h5", "r") as h5:
-        for m, name in ((0.001, "sar_avg_1g"), (0.01, "sar_avg_10g")):
-            if name not in h5 or m not in ours:
-                continue
-            peak = float(np.nanmax(h5[name][()])) / p_acc
-            rows.append({"mass_kg": m, "solver_peak_W_per_kg_per_W": peak, "our_peak_W_per_kg_per_W": ours[m],
-                         "relative_difference": (peak - ours[m]) / ours[m] if ours[m] else None})
-    return {"status": "ok", "note": "the engine's own average, recorded beside ours, not used", "by_mass": rows}
+    for m, our_peak in ours.items():
+        entry = (st.get("by_mass") or {}).get(repr(float(m)), {"status": "failed", "reason": "not in the record"})
+        row = {"mass_kg": float(m), "our_peak_W_per_kg_per_W": _finite_or_none(our_peak)}
+        if entry.get("status") != "ok" or not h5_path.exists():
+            row.update(status="failed", reason=entry.get("reason") or "solver_sar.h5 missing")
+        else:
+            with h5py.File(h5_path, "r") as h5:
+                data = h5[entry["dataset"]][()]
+                centres = [h5[f"{a}_m"][()] for a in "xyz"]
+            i = np.unravel_index(int(np.nanargmax(data)), data.shape)
+            peak = float(data[i]) / p_acc
+            rel = (peak - our_peak) / our_peak if our_peak and math.isfinite(our_peak) else None
+            row.update(status="ok", solver_peak_W_per_kg_per_W=peak,
+                       solver_peak_location_m=[float(c[k]) for c, k in zip(centres, i)],
+                       relative_difference=_finite_or_none(rel) if rel is not None else None)
+        out["by_mass"].append(row)
+    return out
 
 
 def finish_case(case_dir) -> dict:

@@ -34,7 +34,7 @@ class CostEstimate:
 
     ``cells`` counts engine cells as openEMS does (product of the numbers of mesh lines);
     ``memory_bytes`` and ``timesteps`` are per excitation; ``cpu_seconds`` is single-thread CPU time
-    for all excited ports.
+    for all excited ports (plus the repeated port-1 run of ``engine_sar_average``).
     """
 
     cells: int
@@ -84,7 +84,9 @@ def estimate(plan, model, settings) -> CostEstimate:
     pml_cells = cells - int(np.prod([max(1, n - 2 * pml) for n in nl])) if pml else 0
     mem = MEMORY_BASE_B + MEMORY_PER_CELL_B * (cells + pml_cells)
     n_exc = len(settings.excite_ports)
-    cpu = n_exc * cells * steps / CALIBRATED_CELLS_PER_S
+    # the engine's own SAR averaging (opt-in) repeats the run of port 1
+    runs = n_exc + int(bool(getattr(settings, "engine_sar_average", False)) and 1 in settings.excite_ports)
+    cpu = runs * cells * steps / CALIBRATED_CELLS_PER_S
     return CostEstimate(cells=cells, mesh_cells=mesh_cells, timestep_s=dt, pulse_timesteps=pulse, timesteps=steps,
                         memory_bytes=float(mem), cpu_seconds=float(cpu), n_excitations=n_exc)
 

@@ -50,6 +50,7 @@ SOLVER_SAR_NAMES = {0.001: "sar_avg_1g", 0.01: "sar_avg_10g"}
 _CHILD_SETUP = "child_setup.json"
 _CHILD_ERROR = "child_error.json"
 _SCRATCH = ".engine_run"
+_SOLVER_SAR_FILES = ("solver_sar.h5", "solver_sar_status.json", "solver_sar.log")
 
 
 # ------------------------------------------------------------------------------------------------
@@ -293,6 +294,17 @@ def _write_signals(path: Path, port_data: list[dict], f_band: np.ndarray, f0: fl
                 g.attrs["excited"] = d["excited"]
 
 
+def _wants_engine_sar(case_dir: Path) -> bool:
+    """The case's ``solver.engine_sar_average`` setting (False if unreadable)."""
+    try:
+        from .settings import settings_from_dict
+
+        return bool(settings_from_dict(json.loads((case_dir / "case.json").read_text()).get("solver") or {})
+                    .engine_sar_average)
+    except Exception:
+        return False
+
+
 def _settings_threads(case_dir: Path) -> int:
     try:
         from .settings import settings_from_dict
@@ -335,6 +347,9 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
     work = out_dir / _SCRATCH
     shutil.rmtree(work, ignore_errors=True)
     work.mkdir(parents=True)
+    if port == 1:  # results of the engine's own averaging belong to the previous run of port 1
+        for name in _SOLVER_SAR_FILES:
+            (out_dir / name).unlink(missing_ok=True)
     if threads is None:
         threads = _settings_threads(case_dir)
     status: dict = {"status": "failed", "reason": None, "port": port, "runtime_s": None, "cells": None,
@@ -411,19 +426,58 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
         _write_json(out_dir / "status.json", status)
         if not keep_scratch:
             shutil.rmtree(work, ignore_errors=True)
+    if status["status"] == "ok" and port == 1 and _wants_engine_sar(case_dir):
+        try:
+            solve_solver_sar(case_dir, threads=threads, timeout_s=timeout_s)
+        except Exception:  # pragma: no cover - solve_solver_sar records its own failures
+            traceback.print_exc()
     return status
+
+
+def _read_solver_sar_dump(path: Path, lines_m) -> dict:
+    """One averaged-SAR dump of the engine (dump type 21 / 22, HDF5) as ``(nx, ny, nz)`` arrays.
+
+    Same cell order and trimming as the raw dump (:func:`_raw_dump2arrays`, :func:`_trim_to_mesh`), so
+    the values sit on the cells of ``fields_raw.h5``. Raises ``ValueError`` for a dump without data
+    or with NaN (a dump left unfinished when the engine ended the process).
+    """
+    import h5py
+
+    with h5py.File(path, "r") as h5:
+        x, y, z = (np.asarray(h5[f"Mesh/{a}"][()], float) for a in "xyz")
+        fd = h5["FieldData/FD"]
+        keys = [k for k in fd.keys() if not k.endswith("_imag")]
+        if not keys:
+            raise ValueError(f"{path.name}: no field data (dump not finished)")
+        data = np.transpose(np.asarray(fd[keys[0]][()], np.float64), (2, 1, 0))
+    if data.shape != (x.size, y.size, z.size):
+        raise ValueError(f"{path.name}: data shape {data.shape} does not match its mesh {(x.size, y.size, z.size)}")
+    if not np.all(np.isfinite(data)):
+        raise ValueError(f"{path.name}: data contain NaN or infinity")
+    keep = [np.flatnonzero((c > np.min(l)) & (c < np.max(l))) for c, l in zip((x, y, z), lines_m)]
+    return {"sar": data[np.ix_(*keep)], "x_m": x[keep[0]], "y_m": y[keep[1]], "z_m": z[keep[2]]}
 
 
 def solve_solver_sar(case_dir, threads: int | None = None, timeout_s: float | None = None) -> dict:
     """Optional extra: the engine's own 1 g / 10 g averaged SAR for port 1, in a separate run.
 
-    In this openEMS version the engine's averaging was seen 12-19 % above an exact average and now
-    and then ends the process (a zero mass step followed by ``exit()``), so it runs in its own child
-    process and its failure never touches the case. Writes ``excite_1/solver_sar.h5`` (datasets
-    ``sar_avg_1g`` / ``sar_avg_10g``, (nx, ny, nz), W/kg at the run's source amplitude, plus cell
-    centres) and ``excite_1/solver_sar_status.json``. Returns that status.
+    One more engine run of port 1 with the engine's averaged-SAR dumps (``SAR_Method`` IEEE_62704),
+    one per averaging mass of the case (1 g and 10 g; other masses are not offered by the engine). In
+    this openEMS version (0.0.35) the engine's averaging can end its process (``exit()`` after
+    "invalid averaging box size"; seen for 10 g when a one-cell tissue layer holds less than the
+    target mass), so it runs in its own child process: a crash gives a recorded reason, never an
+    exception, and dumps finished before the crash are kept.
+
+    Writes ``excite_1/solver_sar.h5`` (datasets ``sar_avg_1g`` / ``sar_avg_10g``, (nx, ny, nz), W/kg
+    at the run's source amplitude, on the cells of ``fields_raw.h5``, plus cell centres ``x_m``,
+    ``y_m``, ``z_m``) when at least one mass came out, ``excite_1/solver_sar.log`` (engine output)
+    and ``excite_1/solver_sar_status.json``:
+    ``{"status": "ok"|"partial"|"failed", "reason", "by_mass": {"<kg>": {"status", "reason",
+    "dataset"}}, "runtime_s"}``. Returns that status.
     """
     import h5py
+
+    from bodysweep.workflow.atomic import write_text
 
     t0 = time.monotonic()
     case_dir = Path(case_dir).resolve()
@@ -434,30 +488,53 @@ def solve_solver_sar(case_dir, threads: int | None = None, timeout_s: float | No
     work.mkdir(parents=True)
     if threads is None:
         threads = _settings_threads(case_dir)
-    status: dict = {"status": "failed", "reason": None}
+    status: dict = {"status": "failed", "reason": None, "by_mass": {}}
+    log_text = ""
     try:
+        case = json.loads((case_dir / "case.json").read_text())
+        masses = [float(m) for m in (case.get("sar") or {}).get("masses_kg", [0.001, 0.01])]
+        offered = {m: SOLVER_SAR_NAMES[round(m, 6)] for m in masses if round(m, 6) in SOLVER_SAR_NAMES}
+        for m in masses:
+            if m not in offered:
+                status["by_mass"][repr(m)] = {"status": "failed", "dataset": None,
+                                              "reason": "the engine averages over 1 g and 10 g only"}
+        if not offered:
+            raise ValueError("no averaging mass of the case (1 g or 10 g) that the engine offers")
         rc, log_text = _start_child(case_dir, 1, int(threads), work, "solver_sar", timeout_s)
-        reason = _child_reason(rc, work, log_text, timeout_s)
-        if reason is None:
+        crash = _child_reason(rc, work, log_text, timeout_s)
+        setup = json.loads((work / _CHILD_SETUP).read_text()) if (work / _CHILD_SETUP).exists() else {}
+        got = {}
+        for m, name in offered.items():
+            src = work / "sim" / f"{name}.h5"
+            entry = {"status": "failed", "dataset": None, "reason": None}
+            if not src.exists() or "lines_m" not in setup:
+                entry["reason"] = crash or f"{name}.h5 missing after the run"
+            else:
+                try:
+                    got[name] = _read_solver_sar_dump(src, setup["lines_m"])
+                    entry.update(status="ok", dataset=name)
+                except (OSError, KeyError, ValueError) as exc:
+                    entry["reason"] = _one_line(f"{crash + '; ' if crash else ''}{type(exc).__name__}: {exc}")
+            status["by_mass"][repr(m)] = entry
+        if got:
             with _atomic(out_dir / "solver_sar.h5") as tmp:
                 with h5py.File(tmp, "w") as dst:
-                    for name in SOLVER_SAR_NAMES.values():
-                        src_path = work / "sim" / f"{name}.h5"
-                        if not src_path.exists():
-                            continue
-                        with h5py.File(src_path, "r") as src:
-                            x, y, z = (np.asarray(src[f"Mesh/{a}"][()], float) for a in "xyz")
-                            fd = src["FieldData/FD"]
-                            key = [k for k in fd.keys() if not k.endswith("_imag")][0]
-                            data = np.transpose(np.asarray(fd[key][()], np.float64), (2, 1, 0))
-                        dst.create_dataset(name, data=data, compression="gzip")
-                        for a, v in zip("xyz", (x, y, z)):
-                            if f"{a}_m" not in dst:
-                                dst.create_dataset(f"{a}_m", data=v)
-            status["status"] = "ok"
-        status["reason"] = reason
+                    first = next(iter(got.values()))
+                    for a in "xyz":
+                        dst.create_dataset(f"{a}_m", data=first[f"{a}_m"])
+                    for name, d in got.items():
+                        dst.create_dataset(name, data=d["sar"], compression="gzip")
+                    dst.attrs["SAR_Method"] = "IEEE_62704"
+        n_ok = sum(e["status"] == "ok" for e in status["by_mass"].values())
+        status["status"] = "ok" if n_ok == len(status["by_mass"]) else ("partial" if n_ok else "failed")
+        status["reason"] = crash if crash else (None if n_ok == len(status["by_mass"]) else "see by_mass")
     except Exception as exc:
+        status["status"] = "failed"
         status["reason"] = _one_line(f"{type(exc).__name__}: {exc}")
+    try:
+        write_text(out_dir / "solver_sar.log", log_text)
+    except Exception:  # pragma: no cover - disk full etc.
+        pass
     status["runtime_s"] = time.monotonic() - t0
     _write_json(out_dir / "solver_sar_status.json", status)
     shutil.rmtree(work, ignore_errors=True)

@@ -64,6 +64,9 @@ class SolverSettings:
         Allowed 3 ... 10001.
     threads : int
         Engine threads; 0 lets the engine decide. Allowed 0 ... 256.
+    engine_sar_average : bool
+        Also run the engine's own IEEE 62704 mass averaging (one more engine run of port 1) and record
+        its 1 g / 10 g peaks beside bodysweep's in the case metrics, as information only.
     """
 
     cells_per_wavelength: float = 20.0
@@ -80,6 +83,7 @@ class SolverSettings:
     band_fraction: float = 0.3
     n_band_points: int = 201
     threads: int = 0
+    engine_sar_average: bool = False
 
     def __post_init__(self):
         def need(cond: bool, key: str, allowed: str):
@@ -115,6 +119,7 @@ class SolverSettings:
         need(_is_int(self.n_band_points) and 3 <= self.n_band_points <= 10001,
              "n_band_points", "an integer from 3 to 10001")
         need(_is_int(self.threads) and 0 <= self.threads <= 256, "threads", "an integer from 0 (auto) to 256")
+        need(isinstance(self.engine_sar_average, bool), "engine_sar_average", "true or false")
         # the integer-valued floats are stored as float so that to_dict / from_dict round trip exactly
         for key in ("cells_per_wavelength", "max_growth_ratio", "air_margin_wavelengths", "end_criterion_dB",
                     "band_fraction"):
