@@ -53,8 +53,69 @@ def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
             for p in entry.get("ports", [1]):
                 if not (d / f"excite_{p}" / "status.json").exists():
                     out.append(f"{cid}: status {m.get('status')} but excite_{p}/status.json missing")
+            out += verify_metrics(d, cid, m)
         elif not m.get("reason"):
             out.append(f"{cid}: status {m.get('status')!r} without a reason")
+    return out
+
+
+#: relative agreement of metrics.json with the files it was computed with: S at the case frequency is
+#: computed twice from the same port signals (band and single frequency, float64); the SAR volumes in
+#: result.h5 are float32 (relative rounding 6e-8)
+METRICS_RTOL = 1e-6
+
+
+def _close(a: complex | float, b: complex | float) -> bool:
+    return bool(abs(a - b) <= METRICS_RTOL * max(abs(a), abs(b)) + 1e-300)
+
+
+def verify_metrics(d, cid: str, m: dict) -> list[str]:
+    """The figures of a finished case's ``metrics.json`` against its Touchstone file and ``result.h5``.
+
+    S-parameters at the case frequency must equal the Touchstone point at that frequency; each peak
+    averaged SAR must equal the maximum of its averaged volume in ``result.h5``; ``result.h5`` must carry
+    the case's id. A file that cannot be read is reported as such.
+    """
+    out = []
+    ts = next((d / n for n in ("sparams.s2p", "sparams.s1p") if (d / n).exists()), None)
+    f0 = m.get("frequency_Hz")
+    if ts is not None and f0:
+        from .collect import touchstone2arrays
+
+        try:
+            f, S = touchstone2arrays(ts)
+        except Exception as exc:
+            out.append(f"{cid}: {ts.name} unreadable ({' '.join(str(exc).split())[:200]})")
+        else:
+            k = int(np.argmin(np.abs(f - float(f0)))) if len(f) else -1
+            if k >= 0 and abs(f[k] - float(f0)) <= 1e-9 * float(f0):
+                for i in range(S.shape[1]):
+                    for j in range(S.shape[2]):
+                        v = m.get(f"S{i + 1}{j + 1}")
+                        if v is None or not np.isfinite(S[k, i, j]):
+                            continue
+                        if not _close(complex(v[0], v[1]), complex(S[k, i, j])):
+                            out.append(f"{cid}: metrics.json S{i + 1}{j + 1} = {complex(v[0], v[1]):.6g} differs from "
+                                       f"{ts.name} at {float(f0) / 1e6:g} MHz ({complex(S[k, i, j]):.6g})")
+    res = d / "result.h5"
+    if res.exists():
+        import h5py
+
+        try:
+            with h5py.File(res, "r") as h5:
+                if str(h5.attrs.get("case_id", cid)) != cid:
+                    out.append(f"{cid}: result.h5 belongs to case {h5.attrs.get('case_id')!r}")
+                for row in m.get("sar") or []:
+                    name = f"avg_{float(row['mass_kg']) * 1e3:g}g"
+                    peak = row.get("peak_W_per_kg_per_W")
+                    if peak is None or f"sar/{name}" not in h5:
+                        continue
+                    top = float(np.nanmax(h5[f"sar/{name}"][()]))
+                    if not _close(float(peak), top):
+                        out.append(f"{cid}: metrics.json peak SAR {row['mass_kg'] * 1e3:g} g = {peak:.6g} W/kg per W "
+                                   f"differs from the maximum of result.h5 sar/{name} ({top:.6g})")
+        except Exception as exc:
+            out.append(f"{cid}: result.h5 unreadable ({' '.join(str(exc).split())[:200]})")
     return out
 
 
@@ -64,6 +125,36 @@ def _same(a: pd.Series, b: pd.Series) -> bool:
         x, y = an.to_numpy(float), bn.to_numpy(float)
         return bool(np.all((np.isnan(x) & np.isnan(y)) | np.isclose(x, y, rtol=1e-9, atol=0.0, equal_nan=True)))
     return bool((a.fillna("").astype(str).to_numpy() == b.fillna("").astype(str).to_numpy()).all())
+
+
+def _compare_csv(path, fresh: pd.DataFrame) -> list[str]:
+    """The CSV copy of a table against the table collected afresh (written with 10 significant digits)."""
+    try:
+        stored = pd.read_csv(path, dtype=str, keep_default_na=False)
+    except Exception as exc:
+        return [f"tables: {path.name} unreadable ({' '.join(str(exc).split())[:200]})"]
+    if list(stored.columns) != [str(c) for c in fresh.columns]:
+        return [f"tables: {path.name} columns differ from the case files"]
+    if len(stored) != len(fresh):
+        return [f"tables: {path.name} has {len(stored)} rows, the case files give {len(fresh)}"]
+    def text(v) -> str:
+        return "" if v is None or (isinstance(v, float) and v != v) else str(v)
+
+    out = []
+    for c in fresh.columns:
+        a = stored[str(c)].replace("", np.nan).reset_index(drop=True)
+        b = fresh[c].reset_index(drop=True)
+        an, bn = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
+        if an.notna().sum() == a.notna().sum() and bn.notna().sum() == b.notna().sum():
+            x, y = an.to_numpy(float), bn.to_numpy(float)
+            # %.10g keeps 10 significant digits: relative rounding at most 5e-10
+            match = (np.isnan(x) & np.isnan(y)) | np.isclose(x, y, rtol=1e-9, atol=0.0)
+        else:
+            match = a.fillna("").astype(str).to_numpy() == b.map(text).to_numpy()
+        if not match.all():
+            rows = [int(k) for k in np.nonzero(~match)[0]]
+            out.append(f"tables: {path.name} column {c} differs from the case files (rows {rows[:5]}; collect again)")
+    return out
 
 
 def verify_tables(layout: StudyLayout, entries: list[dict]) -> list[str]:
@@ -77,8 +168,11 @@ def verify_tables(layout: StudyLayout, entries: list[dict]) -> list[str]:
         if not p.exists():
             out.append(f"tables: {p.name} missing")
             continue
-        if not (layout.tables_dir / f"{name}.csv").exists():
+        csv = layout.tables_dir / f"{name}.csv"
+        if not csv.exists():
             out.append(f"tables: {name}.csv missing")
+        else:
+            out += _compare_csv(csv, df)
         stored = pd.read_parquet(p)
         if list(stored.columns) != list(df.columns):
             out.append(f"tables: {name} columns differ from the case files ({sorted(set(stored.columns) ^ set(df.columns))[:6]})")
