@@ -175,6 +175,10 @@ def _study_root_of(args: list[str], cwd: Path) -> Path | None:
     return (results / str(name)).resolve()
 
 
+#: Snakemake options of invocations that solve nothing (dry runs, e.g. ``pipeline.scheduled_jobs``)
+_NOT_A_RUN = ("--unlock", "--dry-run", "--dryrun", "-n", "--summary", "--detailed-summary", "--list-rules")
+
+
 def other_snakemake_runs(layout: StudyLayout, exclude: tuple[int, ...] = ()) -> list[int]:
     """Pids of live Snakemake processes (other than ``exclude`` and this one) working on this study.
 
@@ -192,7 +196,7 @@ def other_snakemake_runs(layout: StudyLayout, exclude: tuple[int, ...] = ()) -> 
         if pid == os.getpid() or pid in exclude:
             continue
         args = _proc_args(pid)
-        if not _is_snakemake(args) or "--unlock" in args:
+        if not _is_snakemake(args) or any(a in _NOT_A_RUN for a in args):
             continue
         try:
             cwd = Path(os.readlink(d / "cwd"))
