@@ -464,8 +464,8 @@ def solve_solver_sar(case_dir, threads: int | None = None, timeout_s: float | No
     One more engine run of port 1 with the engine's averaged-SAR dumps (``SAR_Method`` IEEE_62704),
     one per averaging mass of the case (1 g and 10 g; other masses are not offered by the engine). In
     this openEMS version (0.0.35) the engine's averaging can end its process (``exit()`` after
-    "invalid averaging box size"; seen for 10 g when a one-cell tissue layer holds less than the
-    target mass), so it runs in its own child process: a crash gives a recorded reason, never an
+    "invalid averaging box size"; seen for 10 g when a face-centred cube of an outer one-cell tissue
+    layer cannot reach the target mass, i.e. that layer holds less), so it runs in its own child process: a crash gives a recorded reason, never an
     exception, and dumps finished before the crash are kept.
 
     Writes ``excite_1/solver_sar.h5`` (datasets ``sar_avg_1g`` / ``sar_avg_10g``, (nx, ny, nz), W/kg
