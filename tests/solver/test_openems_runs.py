@@ -145,9 +145,11 @@ def test_accepted_power_is_radiated_plus_absorbed(tmp_path):
     # through a closed surface) + P_absorbed (0.5 sigma |E|^2 dV inside it). The absorbed part uses the raw
     # SAR dump's cell-centred field; averaging the Yee edges to cell centres underestimates |E|^2 where the
     # field varies over a cell (here ~8 cells per wavelength in the liquid); the flux through the 5 mm-meshed
-    # surface was 2.5 % low in a loss-free check. Measured 0.93 for this scene (a z-directed dipole gave 0.63
-    # at 5 mm cells in the liquid, 0.87 at 2.5 mm, 0.91 at 1.67 mm). Tolerance: 20 % at this mesh.
-    assert 0.80 <= balance <= 1.05
+    # surface was 2.5 % low in a loss-free check. A mesh effect: scripts/energy_balance_refinement.py gives for
+    # this scene 0.696 / 0.933 / 0.971 / 0.984 at 5 / 2.5 / 1.67 / 1.25 mm cells in the liquid, a gap
+    # shrinking as h^2 (Richardson extrapolation of the last two: 1.001). Measured 0.932-0.933 here (2.5 mm); tolerance
+    # 0.90 ... 1.02: the expected second-order gap of this mesh plus margin, a balance above 1 is not physical.
+    assert 0.90 <= balance <= 1.02
     assert r["absorbed_W"] > 0.1 * r["accepted_W"]
 
 
