@@ -87,7 +87,13 @@ class StudyLock:
             os.close(fd)
             if exc.errno not in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
                 raise
-            raise StudyBusy(f"study {self.layout.root.name!r} is being run by {_describe(read_lock_info(self.path))}; "
+            info = read_lock_info(self.path)
+            holder = _describe(info)
+            if info.get("pid") and not _alive(int(info["pid"])):
+                # the bodysweep process ended alone; its Snakemake (which holds the lock too) goes on
+                pids = other_snakemake_runs(self.layout)
+                holder += f", which has ended; its snakemake (pid {', '.join(map(str, pids)) or '?'}) is still running"
+            raise StudyBusy(f"study {self.layout.root.name!r} is being run by {holder}; "
                             f"wait for it to end or stop it (results folder {self.layout.root})") from None
         record = {"pid": os.getpid(), "host": socket.gethostname(),
                   "started": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
@@ -111,6 +117,16 @@ class StudyLock:
 
     def __exit__(self, *exc) -> None:
         self.release()
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
 
 
 def read_lock_info(path: Path) -> dict:

@@ -41,6 +41,34 @@ def test_lock_is_exclusive_and_dies_with_its_holder(tmp_path):
     StudyLock(layout).acquire().release()
 
 
+def test_lock_outlives_its_taker_in_an_inheriting_child(tmp_path):
+    """`run` passes the locked descriptor to Snakemake: when the taker ends alone, the child still holds it
+    (flock(2): the lock belongs to the open file description, shared by inherited descriptors)."""
+    layout = StudyLayout.of("s", tmp_path)
+    code = ("import subprocess, sys; from bodysweep.workflow.layout import StudyLayout; "
+            "from bodysweep.workflow.runlock import StudyLock; "
+            "lock = StudyLock(StudyLayout.of('s', sys.argv[1])).acquire(); "
+            "p = subprocess.Popen(['sleep', '60'], pass_fds=(lock.fd,), stdout=subprocess.DEVNULL, "
+            "stderr=subprocess.DEVNULL); print(p.pid, flush=True)")
+    taker = subprocess.run([sys.executable, "-c", code, str(tmp_path)], capture_output=True, text=True, timeout=60)
+    child = int(taker.stdout.split()[0])
+    try:
+        with pytest.raises(StudyBusy) as e:
+            StudyLock(layout).acquire()
+        assert "which has ended" in str(e.value)  # the taker's pid is named as ended
+    finally:
+        os.kill(child, signal.SIGKILL)
+    wait_for(lambda: _free(layout), 10, "the lock to be released with the child")
+
+
+def _free(layout) -> bool:
+    try:
+        StudyLock(layout).acquire().release()
+        return True
+    except StudyBusy:
+        return False
+
+
 def test_run_refuses_while_snakemake_runs_the_study_by_hand(tmp_path):
     """A `snakemake --configfile STUDY` started outside bodysweep (here a stand-in process carrying that
     command line) makes `bodysweep run` refuse with exit 5 and the stand-in's pid; nothing is written."""
