@@ -19,7 +19,7 @@ import pytest
 from helpers_reliability import (fingerprint, final_files, group_alive, kill_group, open_every_file, plan_ids, run,
                                  start_run, tiny_study, wait_for)
 
-pytestmark = [pytest.mark.pipeline, pytest.mark.solver, pytest.mark.timeout(600)]
+pytestmark = [pytest.mark.pipeline, pytest.mark.timeout(600)]
 
 
 def _solver_child_alive(pgid: int) -> bool:
@@ -33,6 +33,7 @@ def _solver_child_alive(pgid: int) -> bool:
     return False
 
 
+@pytest.mark.solver
 def test_sigkill_mid_solve_then_rerun(tmp_path):
     study = tiny_study(tmp_path / "study.yaml", "tiny_kill", depths=(6,))
     first = run(["run", str(study), "--cores", "2"], tmp_path)
@@ -91,3 +92,36 @@ def test_sigkill_mid_solve_then_rerun(tmp_path):
     v = run(["verify", str(study)], tmp_path)
     assert v.returncode == 0, v.stdout + v.stderr
     assert len(final_files(root)) > 20
+
+
+def test_writer_killed_mid_write_leaves_the_old_file_and_a_temporary_that_run_removes(tmp_path):
+    """SIGKILL while a file is being replaced: the final name still holds the previous complete content (POSIX
+    rename(2) is atomic), the partial data sit in a hidden temporary, and clear_interrupted removes it."""
+    import signal
+    import subprocess
+    import sys
+
+    from bodysweep.workflow.layout import StudyLayout
+    from bodysweep.workflow.runlock import clear_interrupted, stale_temporaries
+
+    layout = StudyLayout.of("s", tmp_path)
+    final = layout.case_dir("aaaaaaaaaaaa") / "metrics.json"
+    final.parent.mkdir(parents=True)
+    final.write_text(json.dumps({"status": "ok", "S11": [0.5, 0.0]}))
+    code = ("import sys, time; from bodysweep.workflow.atomic import atomic_path\n"
+            "with atomic_path(sys.argv[1]) as tmp:\n"
+            "    fh = open(tmp, 'w'); fh.write('{\"status\": \"ok\", \"S11\": [0.9'); fh.flush()\n"
+            "    print('writing', flush=True); time.sleep(60)\n")
+    w = subprocess.Popen([sys.executable, "-c", code, str(final)], stdout=subprocess.PIPE, text=True)
+    try:
+        assert w.stdout.readline().strip() == "writing"
+    finally:
+        w.send_signal(signal.SIGKILL)
+        w.wait(10)
+    assert json.loads(final.read_text()) == {"status": "ok", "S11": [0.5, 0.0]}  # old content, whole
+    (tmp,) = stale_temporaries(layout)
+    assert tmp.name.startswith(".metrics.json.") and tmp.name.endswith(".part.json")
+    with pytest.raises(ValueError):
+        json.loads(tmp.read_text())  # the temporary really is half-written
+    assert clear_interrupted(layout, tmp_path) == {"snakemake_locks": 0, "temporaries": 1}
+    assert [p.name for p in final.parent.iterdir()] == ["metrics.json"]
