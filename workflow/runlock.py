@@ -98,7 +98,8 @@ class StudyLock:
         record = {"pid": os.getpid(), "host": socket.gethostname(),
                   "started": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
                   "command": " ".join(sys.argv), **(self.info or {})}
-        # the file is locked, so nobody reads it half-written except after a crash of this very write
+        # a refused run reads this record without the lock: between truncate and write it finds it empty
+        # and then names the holder without details
         os.ftruncate(fd, 0)
         os.pwrite(fd, (json.dumps(record, sort_keys=True) + "\n").encode(), 0)
         self.fd = fd
