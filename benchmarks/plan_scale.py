@@ -1,5 +1,6 @@
 """Time planning at scale: ``bodysweep plan`` on a 10,000-case study, and Snakemake dry runs of the real
-Snakefile for 1,000 and 5,000 cases against a bare two-rule Snakefile with the same number of cases.
+Snakefile for 1,000 and 5,000 cases against a bare two-rule Snakefile with the same number of cases (one job
+per case) and against a bare chain of three rules (three jobs per case, as ours: scene, solve, finish).
 
     .venv/bin/python benchmarks/plan_scale.py [--plan-cases 10000] [--dry-cases 1000 5000]
 
@@ -35,6 +36,36 @@ rule make:
     output: "bare/{i}/out.txt"
     shell: "cp {input} {output}"
 '''
+
+CHAIN = '''
+# bare chain of three rules per case (the job count of ours: scene -> solve -> finish), one gather rule
+N = {n}
+rule all:
+    input: expand("chain/{i}/c.txt", i=range(N))
+rule a:
+    input: "chain/{i}/in.txt"
+    output: "chain/{i}/a.txt"
+    shell: "cp {input} {output}"
+rule b:
+    input: "chain/{i}/a.txt"
+    output: "chain/{i}/b.txt"
+    shell: "cp {input} {output}"
+rule c:
+    input: "chain/{i}/b.txt"
+    output: "chain/{i}/c.txt"
+    shell: "cp {input} {output}"
+'''
+
+
+def bare_dry_run(text: str, name: str, n: int, work: Path) -> float:
+    d = work / f"{name}_{n}"
+    for i in range(n):
+        (d / name / str(i)).mkdir(parents=True)
+        (d / name / str(i) / "in.txt").write_text("x")
+    (d / "Snakefile").write_text(text.replace("{n}", str(n)))
+    args = ["--snakefile", str(d / "Snakefile"), "--directory", str(d), "--cores", "1", "--dry-run", "--quiet",
+            "rules"]
+    return dry_run(args, d)
 
 
 def study_with(n: int, folder: Path) -> Path:
@@ -72,16 +103,11 @@ def time_dry_runs(n: int, work: Path) -> None:
     real = snakemake_args(study, results_dir="results", workdir=work, cores=2, profile="local", dry_run=True)
     t_first = dry_run(real, work)  # includes writing the n case folders
     t_real = dry_run(real, work)
-    bare_dir = work / f"bare_{n}"
-    for i in range(n):
-        (bare_dir / "bare" / str(i)).mkdir(parents=True)
-        (bare_dir / "bare" / str(i) / "in.txt").write_text("x")
-    (bare_dir / "Snakefile").write_text(BARE.replace("{n}", str(n)))
-    bare = ["--snakefile", str(bare_dir / "Snakefile"), "--directory", str(bare_dir), "--cores", "1",
-            "--dry-run", "--quiet", "rules"]
-    t_bare = dry_run(bare, bare_dir)
+    t_bare = bare_dry_run(BARE, "bare", n, work)
+    t_chain = bare_dry_run(CHAIN, "chain", n, work)
     print(f"snakemake dry run, {n} cases: bodysweep Snakefile {t_real:.1f} s (first, preparing the case folders: "
-          f"{t_first:.1f} s), bare two-rule Snakefile {t_bare:.1f} s, ratio {t_real / t_bare:.2f}")
+          f"{t_first:.1f} s), bare two-rule Snakefile {t_bare:.1f} s, ratio {t_real / t_bare:.2f}; "
+          f"bare chain of three jobs per case {t_chain:.1f} s, ratio {t_real / t_chain:.2f}")
 
 
 def main() -> None:

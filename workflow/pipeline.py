@@ -124,7 +124,10 @@ def write_case_json(path: Path, case: dict) -> bool:
     text = json_text(case)
     try:
         st = path.stat()
-        old = json.loads(path.read_bytes())
+        raw = path.read_bytes()
+        if raw == text.encode():  # unchanged (the common case on a rerun): no parsing needed
+            return False
+        old = json.loads(raw)
     except (FileNotFoundError, ValueError):
         return write_if_changed(path, text)
     if json_text(old) == text:
