@@ -73,7 +73,7 @@ def _cwd(path: Path):
 
 
 def run_study(workdir: Path, study: dict, cores: int = 2) -> Path:
-    """Write the study file into ``workdir`` and run it with ``bodysweep run``; returns the results folder."""
+    """Write the study file into ``workdir``, ``bodysweep run`` and ``verify`` it; returns the results folder."""
     from bodysweep.workflow import cli
 
     workdir = Path(workdir)
@@ -82,8 +82,11 @@ def run_study(workdir: Path, study: dict, cores: int = 2) -> Path:
     path.write_text(yaml.safe_dump(study, sort_keys=False))
     with _cwd(workdir):
         rc = cli.main(["run", str(path), "--cores", str(cores), "--accept-cost"])
-    if rc != 0:
-        raise RuntimeError(f"bodysweep run {path} ended with exit code {rc}")
+        if rc != 0:
+            raise RuntimeError(f"bodysweep run {path} ended with exit code {rc}")
+        rc = cli.main(["verify", str(path)])  # the case folders and tables are consistent (one-port: .s1p)
+        if rc != 0:
+            raise RuntimeError(f"bodysweep verify {path} ended with exit code {rc}")
     return workdir / "results" / study["study"]
 
 
