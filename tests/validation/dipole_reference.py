@@ -106,7 +106,7 @@ def interpolate(f_Hz, Z, f0: float) -> complex:
 
 
 def s2z(S, z0: float = 50.0):
-    """Input impedance from a reflection coefficient: ``Z = Z0 (1 + S11) / (1 - S11)`` (Pozar eq. 2.35)."""
+    """Input impedance from a reflection coefficient: ``Z = Z0 (1 + S11) / (1 - S11)`` (Pozar, 4th ed., eq. 2.35 solved for Z)."""
     S = np.asarray(S, complex)
     return z0 * (1 + S) / (1 - S)
 

@@ -1,7 +1,7 @@
 """Free-space dipoles through the real pipeline (study file -> bodysweep run -> openEMS -> tables).
 
 1. A thin-wire half-wave dipole: input impedance from S11 (Z = Z0 (1 + S11) / (1 - S11), Pozar, Microwave
-   Engineering, 4th ed., eq. 2.35) over the S-parameter band, i.e. a frequency sweep through resonance.
+   Engineering, 4th ed., eq. 2.35 solved for Z) over the S-parameter band, i.e. a frequency sweep through resonance.
 2. Two parallel half-wave dipoles two wavelengths apart, broadside: |S21| against Friis.
 
 References (tests/validation/dipole_reference.py): NEC-2 method of moments (``necpp``, nec2++) for the
