@@ -114,12 +114,22 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
 DESCRIPTIVE_KEYS = ("label", "study", "parameters")
 
 
+def _results_relevant(case: dict) -> dict:
+    """``case.json`` content without the descriptive keys and the run-only solver settings (threads)."""
+    from .study.cases import solver_identity
+
+    out = {k: v for k, v in case.items() if k not in DESCRIPTIVE_KEYS}
+    if isinstance(out.get("solver"), dict):
+        out["solver"] = solver_identity(out["solver"])
+    return out
+
+
 def write_case_json(path: Path, case: dict) -> bool:
     """Write ``case.json`` if its content changed; True if written.
 
     When only descriptive fields changed (label, study name, parameter names: the same case reached
-    through a re-written sweep), the file is updated but keeps its modification time, because
-    nothing that alters results changed and Snakemake must not rerun the case.
+    through a re-written sweep) or run-only solver settings (threads), the file is updated but keeps its
+    modification time, because nothing that alters results changed and Snakemake must not rerun the case.
     """
     text = json_text(case)
     try:
@@ -132,8 +142,7 @@ def write_case_json(path: Path, case: dict) -> bool:
         return write_if_changed(path, text)
     if json_text(old) == text:
         return False
-    same = {k: v for k, v in old.items() if k not in DESCRIPTIVE_KEYS} == \
-        {k: v for k, v in json.loads(text).items() if k not in DESCRIPTIVE_KEYS}
+    same = _results_relevant(old) == _results_relevant(json.loads(text))
     write_if_changed(path, text)
     if same:
         os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))

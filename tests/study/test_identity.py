@@ -127,6 +127,36 @@ def test_study_name_and_label_are_not_part_of_the_id():
     assert _ids(load_study(a)) == _ids(load_study(b))
 
 
+def test_thread_count_is_not_part_of_the_id():
+    # threads decide how the engine runs a case, not what it computes (openEMS splits the same update
+    # equations over threads; common practice): a study rerun with other threads reuses its cases
+    a = _minimal()
+    b = copy.deepcopy(a)
+    a["solver"] = {"threads": 1}
+    b["solver"] = {"threads": 4}
+    assert _ids(load_study(a)) == _ids(load_study(b))
+    assert expand(load_study(b))[0].solver["threads"] == 4  # still recorded in case.json
+
+
+def test_case_json_with_other_threads_keeps_its_mtime(tmp_path):
+    # Snakemake reruns a job whose input is newer than its output (Snakemake docs, rerun triggers "mtime"):
+    # a case.json whose only change is the thread count is rewritten but keeps its modification time
+    from bodysweep.workflow.pipeline import write_case_json
+
+    one = expand(load_study({**_minimal(), "solver": {"threads": 1}}))[0].to_dict()
+    two = expand(load_study({**_minimal(), "solver": {"threads": 2}}))[0].to_dict()
+    deeper = copy.deepcopy(one)
+    deeper["scene"]["implant"]["depth_m"] = 0.02
+    path = tmp_path / "case.json"
+    assert write_case_json(path, one)
+    os.utime(path, ns=(1_000_000_000, 1_000_000_000))
+    assert write_case_json(path, two)
+    assert json.loads(path.read_text())["solver"]["threads"] == 2
+    assert path.stat().st_mtime_ns == 1_000_000_000
+    assert write_case_json(path, deeper)  # a change that alters results moves the mtime
+    assert path.stat().st_mtime_ns != 1_000_000_000
+
+
 def test_adding_an_unrelated_case_keeps_the_other_ids():
     d = _minimal()
     d["sweep"] = {"parameters": {"depth": "scene.implant.depth_mm"}, "blocks": [{"grid": {"depth": [5, 10]}}]}

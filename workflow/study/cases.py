@@ -72,9 +72,19 @@ class Case:
         })
 
 
+#: solver settings that decide how a case is run, not what it computes: left out of the case identity
+#: (a study rerun with another thread count reuses its finished cases)
+RUN_ONLY_SOLVER_KEYS = ("threads",)
+
+
+def solver_identity(solver: dict) -> dict:
+    """The solver settings that are part of the case identity: all but :data:`RUN_ONLY_SOLVER_KEYS`."""
+    return {k: v for k, v in solver.items() if k not in RUN_ONLY_SOLVER_KEYS}
+
+
 def identity_content(scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite_ports, versions: dict) -> dict:
     """The mapping whose canonical JSON hash is the case id."""
-    return {"scene": scene, "frequency_Hz": frequency_Hz, "solver": solver, "sar": sar,
+    return {"scene": scene, "frequency_Hz": frequency_Hz, "solver": solver_identity(solver), "sar": sar,
             "excite_ports": list(excite_ports), "versions": versions}
 
 
