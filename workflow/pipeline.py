@@ -384,7 +384,11 @@ def default_threads_per_job() -> int:
     Small and medium FDTD cases scale better as parallel single-thread jobs than as one job on two
     threads (the engine is memory-bound); ``--threads-per-job`` sets it for large cases. Measured with
     ``benchmarks/parallel_layout.py`` (2 shared cores, 2026-12-02): two single-thread jobs side by side
-    gave 2.8x (31 k cells) and 2.5x (312 k cells) the throughput of one job on two threads.
+    gave 2.8x (31 k cells) and 2.5x (312 k cells) the throughput of one job on two threads; at 981 k
+    cells one job on two threads was 1.16x faster, so studies of meshes around 1 M cells and more
+    should pass ``--threads-per-job 2``. The default is not made per case: Snakemake asks for a job's
+    threads while it builds the DAG (also in a dry run), and knowing a case's cell count means meshing
+    it, about 30 ms per case in every dry run.
     """
     return 1
 
