@@ -2,7 +2,9 @@
 
 Plots
 -----
+``cases_overview.png``            every case in one chart: S21 (dB) and delivered implant power (dBm), best first
 ``s21_vs_<parameter>.png``        S21 (dB) and delivered implant power (dBm) against each swept parameter
+                                  (only parameters along which some series has two or more points)
 ``peak_sar.png``                  peak 1 g / 10 g averaged SAR per watt of input power, per case
 ``sar_section_<case_id>.png``     SAR cross-sections through the SAR peak of the best case (result.h5)
 """
@@ -69,12 +71,63 @@ def _x_values(col: pd.Series) -> tuple[np.ndarray, list[str] | None]:
     return col.astype(str).map({c: i for i, c in enumerate(cats)}).to_numpy(float), cats
 
 
-def plot_vs_parameter(summary: pd.DataFrame, param: str, others: list[str], path: Path) -> Path:
-    """S21 (dB) and delivered power (dBm) against ``param``, one line per combination of ``others``."""
+def _ranking_column(summary: pd.DataFrame) -> str:
+    for col in ("delivered_dBm", "S21_dB"):
+        if col in summary and pd.to_numeric(summary[col], errors="coerce").notna().any():
+            return col
+    return "S21_dB"
+
+
+def plot_cases_overview(summary: pd.DataFrame, path: Path) -> Path | None:
+    """One row per finished case, best first: S21 (dB) and delivered implant power at the SAR limit (dBm).
+
+    Works for any sweep shape (also when parameters move together, as in a list block), so it is the first
+    picture of the report. At most ``MAX_BARS`` cases are shown.
+    """
+    ok = summary[summary["status"].isin(["ok", "warning"])].copy()
+    if ok.empty:
+        return None
+    rank = _ranking_column(ok)
+    ok["_rank"] = pd.to_numeric(ok[rank], errors="coerce")
+    ok = ok.sort_values("_rank", ascending=False, na_position="last").head(MAX_BARS)
     plt = _plt()
+    n = len(ok)
+    fig, axes = plt.subplots(1, 2, sharey=True, figsize=(11, max(2.5, 0.32 * n + 1.4)))
+    y = np.arange(n)[::-1]
+    labels = ok["label"].astype(str).where(ok["label"].astype(str) != "", ok["case_id"].astype(str))
+    for ax, col, xlab in zip(axes, ("S21_dB", "delivered_dBm"),
+                             ("S21 (dB)", "delivered implant power at the SAR limit (dBm)")):
+        vals = pd.to_numeric(ok[col], errors="coerce").to_numpy(float) if col in ok else np.full(n, np.nan)
+        ax.hlines(y, np.nanmin(vals) if np.isfinite(vals).any() else 0, vals, color="0.8", lw=1)
+        ax.plot(vals, y, "o", color="tab:blue")
+        for yy, v in zip(y, vals):
+            if np.isfinite(v):
+                ax.annotate(f"{v:.1f}", (v, yy), xytext=(4, 0), textcoords="offset points", va="center", fontsize=7)
+        ax.set_xlabel(xlab)
+        ax.grid(True, axis="x", alpha=0.3)
+    axes[0].set_yticks(y, labels, fontsize=7)
+    extra = f" (best {MAX_BARS} of {len(summary)})" if len(summary) > MAX_BARS else ""
+    fig.suptitle(f"All cases, best first by {rank}{extra}")
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def plot_vs_parameter(summary: pd.DataFrame, param: str, others: list[str], path: Path) -> Path | None:
+    """S21 (dB) and delivered power (dBm) against ``param``, one line per combination of ``others``.
+
+    Returns None (no plot) when no series has two or more points along ``param`` (the parameter only
+    moves together with others, as in a list or zip block: the overview shows those cases).
+    """
     ok = summary[summary["status"].isin(["ok", "warning"])]
-    fig, axes = plt.subplots(1, 2, figsize=(10, 4))
     groups = list(ok.groupby(others, dropna=False)) if others else [((), ok)]
+    groups = [(k, g) for k, g in groups if g[param].nunique(dropna=False) > 1]
+    if not groups:
+        return None
+    plt = _plt()
+    shown = min(len(groups), MAX_SERIES)
+    legend_rows = 0 if len(groups) == 1 else (shown if shown > 5 else (shown + 1) // 2)
+    legend_in = 0.15 * legend_rows + 0.1 if legend_rows else 0.0  # inches below the axes for the legend
+    fig, axes = plt.subplots(1, 2, figsize=(10, 4 + legend_in))
     x_all, cats = _x_values(summary[param])
     cat_map = {c: i for i, c in enumerate(cats)} if cats else None
     for k, (key, g) in enumerate(groups[:MAX_SERIES]):
@@ -84,16 +137,20 @@ def plot_vs_parameter(summary: pd.DataFrame, param: str, others: list[str], path
         order = np.argsort(x)
         for ax, col in zip(axes, ("S21_dB", "delivered_dBm")):
             ax.plot(x[order], g[col].to_numpy(float)[order], marker="o", label=label)
-    for ax, ylab in zip(axes, ("S21 (dB)", "delivered implant power at the SAR limit (dBm)")):
+    for ax, ylab in zip(axes, ("S21 (dB)", "delivered implant power\nat the SAR limit (dBm)")):
         ax.set_xlabel(param)
         ax.set_ylabel(ylab)
         ax.grid(True, alpha=0.3)
         if cats:
             ax.set_xticks(range(len(cats)), cats, rotation=20)
-    if len(groups) > 1:
-        axes[1].legend(fontsize=7, loc="best")
     extra = f" (first {MAX_SERIES} of {len(groups)} series)" if len(groups) > MAX_SERIES else ""
     fig.suptitle(f"S21 and delivered power vs {param}{extra}")
+    if legend_rows:  # legend below the plots, where it hides no point
+        handles, labels = axes[0].get_legend_handles_labels()
+        fig.legend(handles, labels, loc="lower center", ncol=1 if shown > 5 else 2, fontsize=7, frameon=False)
+        fig.tight_layout(rect=(0, legend_in / (4 + legend_in), 1, 1))
+    else:
+        fig.tight_layout()
     return _save(fig, path)
 
 
@@ -204,10 +261,14 @@ def write_report(layout: StudyLayout) -> Path:
              f"Tables: `../tables/summary.parquet`, `sparams.parquet`, `sar.parquet` (and `.csv`).", ""]
     figures: list[tuple[str, Path]] = []
     if not ok.empty:
+        overview = plot_cases_overview(summary, rdir / "cases_overview.png")
+        if overview:
+            figures.append(("All cases, best first", overview))
         for p in swept:
             others = [o for o in swept if o != p]
-            figures.append((f"S21 and delivered power vs `{p}`",
-                            plot_vs_parameter(summary, p, others, rdir / f"s21_vs_{_safe(p)}.png")))
+            png = plot_vs_parameter(summary, p, others, rdir / f"s21_vs_{_safe(p)}.png")
+            if png:
+                figures.append((f"S21 and delivered power vs `{p}`", png))
         sar_png = plot_peak_sar(summary, rdir / "peak_sar.png")
         if sar_png:
             figures.append(("Peak averaged SAR per watt of input power", sar_png))
