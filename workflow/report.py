@@ -252,6 +252,8 @@ def write_report(layout: StudyLayout) -> Path:
     pcols = [k if k == "frequency_MHz" else (f"param.{k}" if f"param.{k}" in summary.columns else k) for k in pkeys]
     rdir = layout.report_dir
     rdir.mkdir(parents=True, exist_ok=True)
+    for stale in [*rdir.glob("s21_vs_*.png"), *rdir.glob("sar_section_*.png")]:  # from an earlier report
+        stale.unlink(missing_ok=True)
     swept = swept_parameters(summary, pcols)
     ok = summary[summary["status"].isin(["ok", "warning"])]
     failed = summary[~summary["status"].isin(["ok", "warning"])]
