@@ -388,7 +388,7 @@ def default_threads_per_job() -> int:
     cells one job on two threads was 1.16x faster, so studies of meshes around 1 M cells and more
     should pass ``--threads-per-job 2``. The default is not made per case: Snakemake asks for a job's
     threads while it builds the DAG (also in a dry run), and knowing a case's cell count means meshing
-    it, about 30 ms per case in every dry run.
+    it, 20-60 ms per case (benchmarks/overhead.py) in every dry run.
     """
     return 1
 
