@@ -182,7 +182,6 @@ class _Tables:
         q = np.stack([m, sar * m, np.where(tissue, dv, 0.0)], axis=-1)
         self.T = _summed_table(q)  # (nx+1, ny+1, nz+1, 3)
         self.Tflat = self.T.reshape(-1, 3)
-        self.Mflat = np.ascontiguousarray(self.T[..., 0]).ravel()
         self.C = _summed_table(tissue.astype(np.int64))  # tissue cell count
         self.strides = (self.T.shape[1] * self.T.shape[2], self.T.shape[2], 1)
         self.shape = rho.shape
