@@ -567,6 +567,9 @@ def auto_mesh(model: SceneModel, settings: SolverSettings) -> MeshPlan:
         raise ValueError("auto_mesh: the scene has no primitives and no ports; nothing to mesh")
     lo, hi, clipped, notes = _interior_bounds(model, settings)
     fixed, limits = _requirements(model, settings, lo, hi)
+    mirror = getattr(settings, "mirror_plane", None)  # half domain: a wall line at 0, nothing below it
+    if mirror is not None:
+        fixed[mirror].append((0.0, P_BOUND, "mirror plane (electric wall)"))
     finest = min(h for a in AXES for (_, _, h, _) in limits[a] if h > 0)
     threshold = settings.min_cell_m if settings.min_cell_m is not None else 0.25 * finest
     notes = list(notes) + [f"finest requested cell {finest*1e3:.4f} mm; merge threshold {threshold*1e3:.4f} mm"]
@@ -583,6 +586,10 @@ def auto_mesh(model: SceneModel, settings: SolverSettings) -> MeshPlan:
         if pad:
             h0, h1 = ln[1] - ln[0], ln[-1] - ln[-2]
             ln = np.concatenate([ln[0] - h0 * np.arange(pad, 0, -1), ln, ln[-1] + h1 * np.arange(1, pad + 1)])
+        if a == mirror:
+            ln = ln[ln >= 0.0]
+            lo[AXES.index(a)] = 0.0
+            notes.append(f"{a}: half domain {a} >= 0 (mirror_plane), electric wall at {a} = 0")
         lines.append(ln)
     return MeshPlan(lines_x=lines[0], lines_y=lines[1], lines_z=lines[2],
                     interior_bounds=(tuple(map(float, lo)), tuple(map(float, hi))),  # type: ignore[arg-type]

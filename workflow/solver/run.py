@@ -136,10 +136,19 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
         if port not in numbers:
             raise ValueError(f"port {port} is not in the scene; ports: {numbers}")
         pulse_f0, pulse_fc = excitation_pulse(f0, settings.band_fraction)
+        walls = engine.boundary_conditions(settings.boundary, settings.pml_cells)
+        half = settings.mirror_plane  # half domain with an electric wall (see .mirror)
+        feeds = list(model.ports)
+        if half is not None:
+            from . import mirror
+
+            mirror.check_symmetric(model, half)
+            walls = mirror.half_boundaries(walls, half)
+            feeds = [mirror.half_port(p, half) for p in feeds]
         fdtd, csx = engine.new_simulation(pulse_f0, pulse_fc, settings.end_criterion_linear,
-                                          settings.max_timesteps, settings.boundary, settings.pml_cells)
+                                          settings.max_timesteps, boundaries=walls)
         csx, report = build.build_csx(model, plan, settings, csx)
-        probes = [ports.add_lumped_port(csx, p, excite=(p.number == port)) for p in model.ports]
+        probes = [ports.add_lumped_port(csx, p, excite=(p.number == port)) for p in feeds]
         lo, hi = plan.interior_bounds
         if mode == "main" and port == 1:
             dump = csx.AddDump(SAR_DUMP_NAME, dump_type=29, file_type=1, frequency=[f0])
@@ -154,7 +163,7 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
                 dump.AddAttribute("SAR_Method", "IEEE_62704")
                 dump.AddBox(list(lo), list(hi))
         setup = {"cells": report.cells, "clipped": report.clipped, "air_slabs": report.air_slabs,
-                 "notes": report.notes, "pulse_f0_Hz": pulse_f0, "pulse_fc_Hz": pulse_fc,
+                 "notes": report.notes, "pulse_f0_Hz": pulse_f0, "mirror_plane": half, "pulse_fc_Hz": pulse_fc,
                  "max_timesteps": settings.max_timesteps, "end_criterion_dB": settings.end_criterion_dB,
                  "probes": [vars(p) for p in probes],
                  "lines_m": [np.asarray(getattr(plan, f"lines_{a}"), float).tolist() for a in "xyz"]}
@@ -381,12 +390,16 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
             for pd in setup["probes"]:
                 pr = PortProbes(**pd)
                 sig = probe_signals(work / "sim", pr)
+                z_port = pr.impedance_ohm
+                if setup.get("mirror_plane"):  # the full structure: twice the half gap's voltage, Z0
+                    sig["voltage_V"] = 2.0 * sig["voltage_V"]
+                    z_port = 2.0 * pr.impedance_ohm
                 Vb, Ib = signals2phasors(sig["t_voltage_s"], sig["voltage_V"], sig["t_current_s"],
                                          sig["current_A"], f_band)
                 V0, I0 = signals2phasors(sig["t_voltage_s"], sig["voltage_V"], sig["t_current_s"],
                                          sig["current_A"], [f0])
                 port_data.append({**sig, "number": pr.number, "V_band": Vb, "I_band": Ib, "V_f0": V0[0],
-                                  "I_f0": I0[0], "impedance_ohm": pr.impedance_ohm, "excited": pr.excited})
+                                  "I_f0": I0[0], "impedance_ohm": z_port, "excited": pr.excited})
             finite = all(np.all(np.isfinite(d[k])) for d in port_data for k in ("voltage_V", "current_A"))
             attrs = {"timesteps": int(info["timesteps"] or 0), "decay_reached": decay, "excited_port": port,
                      "pulse_f0_Hz": setup["pulse_f0_Hz"], "pulse_fc_Hz": setup["pulse_fc_Hz"]}
@@ -405,6 +418,10 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
                     arrays = _trim_to_mesh(_raw_dump2arrays(raw), setup["lines_m"])
                     for a, lines in zip("xyz", setup["lines_m"]):
                         arrays[f"{a}_edges_m"] = centres2edges(arrays[f"{a}_m"], lines)
+                    if setup.get("mirror_plane"):  # unfold onto the full grid (cubes straddle the wall)
+                        from .mirror import mirror_fields
+
+                        arrays = mirror_fields(arrays, setup["mirror_plane"])
                     if not np.all(np.isfinite(arrays["E_V_per_m"])):
                         reason = "raw SAR dump contains NaN or infinity"
                     else:

@@ -67,6 +67,12 @@ class SolverSettings:
     engine_sar_average : bool
         Also run the engine's own IEEE 62704 mass averaging (one more engine run of port 1) and record
         its 1 g / 10 g peaks beside bodysweep's in the case metrics, as information only.
+    mirror_plane : {None, "x", "y", "z"}
+        Solve half the domain: the plane ``<axis> = 0`` becomes an electric wall (PEC) and only the
+        side ``<axis> >= 0`` is meshed (see :mod:`bodysweep.workflow.solver.mirror`). The scene must be
+        mirror-symmetric about that plane and every port must point along ``<axis>`` with its feed
+        gap centred on the plane; the case is refused otherwise. ``None`` (default): full domain.
+        Left out of :meth:`to_dict` when ``None``, so case ids of studies without it do not change.
     """
 
     cells_per_wavelength: float = 20.0
@@ -84,6 +90,7 @@ class SolverSettings:
     n_band_points: int = 201
     threads: int = 0
     engine_sar_average: bool = False
+    mirror_plane: str | None = None
 
     def __post_init__(self):
         def need(cond: bool, key: str, allowed: str):
@@ -120,6 +127,10 @@ class SolverSettings:
              "n_band_points", "an integer from 3 to 10001")
         need(_is_int(self.threads) and 0 <= self.threads <= 256, "threads", "an integer from 0 (auto) to 256")
         need(isinstance(self.engine_sar_average, bool), "engine_sar_average", "true or false")
+        need(self.mirror_plane in (None, "x", "y", "z"), "mirror_plane",
+             "null (full domain) or one of 'x', 'y', 'z' (electric wall on the plane <axis> = 0)")
+        need(self.mirror_plane is None or not self.engine_sar_average, "mirror_plane",
+             "null when engine_sar_average is true (the engine would average the half domain only)")
         # the integer-valued floats are stored as float so that to_dict / from_dict round trip exactly
         for key in ("cells_per_wavelength", "max_growth_ratio", "air_margin_wavelengths", "end_criterion_dB",
                     "band_fraction"):
@@ -155,6 +166,8 @@ class SolverSettings:
         """Plain JSON-ready dict in SI; :func:`settings_from_dict` of it gives back an equal object."""
         d = asdict(self)
         d["excite_ports"] = list(self.excite_ports)
+        if d["mirror_plane"] is None:  # off: not part of the dict, so existing case ids stay the same
+            del d["mirror_plane"]
         return d
 
     @classmethod
