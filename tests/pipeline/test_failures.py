@@ -25,7 +25,7 @@ def test_failed_case_is_recorded_and_retried(tmp_path, monkeypatch, capsys):
     d = yaml.safe_load(TINY.read_text())
     d["study"] = "tiny_fail"
     d["sweep"]["parameters"]["steps"] = "solver.max_timesteps"
-    d["sweep"]["blocks"] = [{"list": [{"depth": 6, "steps": 1000}, {"depth": 9, "steps": 20000}]}]
+    d["sweep"]["blocks"] = [{"list": [{"depth": 6, "steps": 1000}, {"depth": 9, "steps": 200000}]}]
     study = tmp_path / "fail.yaml"
     study.write_text(yaml.safe_dump(d, sort_keys=False))
     monkeypatch.chdir(tmp_path)

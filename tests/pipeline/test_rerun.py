@@ -89,7 +89,7 @@ def test_changed_solver_setting_reruns_the_cases_it_affects(ran, capsys):
     # a setting swept per case: only the case whose value differs from the first run reruns
     d = copy.deepcopy(base)
     d["sweep"]["parameters"]["steps"] = "solver.max_timesteps"
-    d["sweep"]["blocks"][0] = {"zip": {"depth": [6, 9], "steps": [20000, 30000]}}
+    d["sweep"]["blocks"][0] = {"zip": {"depth": [6, 9], "steps": [200000, 300000]}}
     assert _case_jobs(_dry(work, d, "solver_one.yaml")) == {"scene": 1, "solve": 1, "finish": 1}
 
 
@@ -98,7 +98,7 @@ def test_plan_reports_changed_cases(ran, capsys):
     import os
 
     d = copy.deepcopy(base)
-    d["solver"]["max_timesteps"] = 25000
+    d["solver"]["max_timesteps"] = 250000
     # restore the original plan first (earlier dry runs rewrote plan.json), then plan the edit
     assert scheduled_jobs(study, workdir=work) == {}
     p = _write(work / "plan_edit.yaml", d)
