@@ -78,6 +78,18 @@ def test_half_mesh_ends_on_the_wall_and_fields_unfold_as_images():
 
 
 @pytest.mark.solver
+def test_solve_refuses_an_asymmetric_case_with_the_reason(tmp_path):
+    from bodysweep.workflow.solver.run import solve_excitation
+
+    c = _tiny_case().to_dict()
+    c["scene"]["implant"]["position_m"] = [0.001, 0.0]  # 1 mm off the plane x = 0
+    c["solver"] = {**c["solver"], "mirror_plane": "x"}
+    (tmp_path / "case.json").write_text(json.dumps(c))
+    st = solve_excitation(tmp_path, 1, threads=1)
+    assert st["status"] == "failed" and "not symmetric about x = 0" in st["reason"], st["reason"]
+
+
+@pytest.mark.solver
 def test_half_domain_gives_the_full_domain_s_parameters_and_sar(tmp_path):
     from bodysweep.workflow.solver.case import finish_case
     from bodysweep.workflow.solver.run import solve_excitation

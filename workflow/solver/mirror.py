@@ -19,6 +19,12 @@ half the voltage of the full structure, so its lumped port has ``Z0 / 2``; the f
 is twice the half's. The field of ``a < 0`` is the mirror image of the solved half (tangential E
 odd, normal E even), so the SAR volume is mirrored onto the full grid before averaging (cubes
 straddle the plane).
+
+Measured on the tiny test study (``benchmarks/mirror_symmetry.py``): 0.51x the cells, 0.48x the engine
+time per run, S-parameters within 0.015 dB and peak 1 g / 10 g SAR within 1 % of the full run. With
+the first-order Mur boundary the half run's last energy decays more slowly than the full run's
+(-47 dB after 33 000 steps against -53 dB after 15 000), so a strict end criterion costs steps there;
+with a PML both decay alike.
 """
 from __future__ import annotations
 

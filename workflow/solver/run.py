@@ -143,6 +143,10 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
             from . import mirror
 
             mirror.check_symmetric(model, half)
+            first = float(np.asarray(getattr(plan, f"lines_{half}"), float)[0])
+            if first != 0.0:  # a hand mesh (mesh_plan.json) must end on the wall as auto_mesh does
+                raise ValueError(f"mirror_plane {half}: the mesh must start at the wall {half} = 0; its first "
+                                 f"{half} line is at {first * 1e3:g} mm")
             walls = mirror.half_boundaries(walls, half)
             feeds = [mirror.half_port(p, half) for p in feeds]
         fdtd, csx = engine.new_simulation(pulse_f0, pulse_fc, settings.end_criterion_linear,
