@@ -140,20 +140,40 @@ def _fmt_cpu(s: float) -> str:
 
 
 def plan_rows(layout, entries, dicts, previous) -> list[dict]:
+    """One row per case: state and, for cases still to run, the mesh and cost estimate.
+
+    Estimates are remembered in the study folder (:mod:`bodysweep.workflow.cost_cache`) and computed in
+    worker processes when many are missing; call :func:`remember_costs` to store them.
+    """
+    from . import cost_cache
     from .pipeline import case_states
 
     states = case_states(layout, entries, previous)
+    need = [d for d, (state, _) in zip(dicts, states) if state != "done"]
+    known = cost_cache.load(layout.root)
+    found = cost_cache.estimates(need, known, case_cost)
     rows = []
     for e, d, (state, why) in zip(entries, dicts, states):
         row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
         if state != "done":
-            try:
-                row.update(case_cost(d))
-            except Exception as exc:  # a case the mesher refuses shows up as such, not as a crash
+            est = found[d["case_id"]]
+            if isinstance(est, Exception):  # a case the mesher refuses shows up as such, not as a crash
                 row.update({"cells": float("nan"), "timesteps": float("nan"), "memory_B": float("nan"),
-                            "cpu_s": float("nan"), "disk_B": float("nan"), "scratch_B": float("nan"), "note": f"no estimate: {' '.join(str(exc).split())[:120]}"})
+                            "cpu_s": float("nan"), "disk_B": float("nan"), "scratch_B": float("nan"), "note": f"no estimate: {' '.join(str(est).split())[:120]}"})
+            else:
+                row.update(est)
+                row["_estimate"] = est
         rows.append(row)
     return rows
+
+
+def remember_costs(layout, rows: list[dict]) -> None:
+    """Store the estimates of ``rows`` in the study folder if it exists (nothing is created for it)."""
+    from . import cost_cache
+
+    known = cost_cache.load(layout.root)
+    known.update({r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
+    cost_cache.save(layout.root, known)
 
 
 def study_cpu_budget_hours(study, given: float | None) -> float:
@@ -246,6 +266,7 @@ def cmd_plan(a) -> int:
     problems = _study_budget_problems(study, rows, a)
     if problems and not a.accept_cost:
         return _refuse_over_budget(problems)
+    remember_costs(layout, rows)
     return EXIT_OK
 
 
@@ -254,6 +275,7 @@ def cmd_run(a) -> int:
 
     study, layout, entries, dicts = _expand(a.study, a.results_dir)
     _check_geometry(dicts)
+    rows: list[dict] = []
     if not a.accept_cost:
         rows = plan_rows(layout, entries, dicts, previous_plan(layout))
         problems = _study_budget_problems(study, rows, a)
@@ -266,6 +288,8 @@ def cmd_run(a) -> int:
     log = layout.logs_dir / f"snakemake_{datetime.now(timezone.utc).strftime('%Y%m%dT%H%M%SZ')}.log"
     try:
         with _run_lock(layout, log) as lock:
+            if rows:
+                remember_costs(layout, rows)  # the study folder exists once the lock is taken
             return _run_locked(a, lock, log)
     except StudyBusy as exc:
         _err(str(exc))

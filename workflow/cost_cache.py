@@ -1,0 +1,97 @@
+"""Cost estimates remembered per case, so that planning a study again does not mesh every case again.
+
+The mesh and cost estimate of a case (:func:`bodysweep.workflow.cli.case_cost`) is a pure function of the
+case's content, which its ``case_id`` identifies, and of the code that meshes and estimates. The store is
+``results/<study>/cost_estimates.json``::
+
+    {"code": "<hash of the mesher / cost model / disk estimate source>", "cases": {"<case_id>": {...}, ...}}
+
+A change of that code (or of a case) gives other keys, so a stale estimate is never used. Missing estimates
+are computed in worker processes when there are many of them (meshing is pure Python and numpy, one case
+at a time per process).
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+from typing import Callable
+
+from .atomic import write_text
+
+FILE_NAME = "cost_estimates.json"
+#: below this many missing estimates the work is done in this process (a pool costs about half a second)
+PARALLEL_FROM = 64
+
+
+def code_signature() -> str:
+    """Hash of the source files whose change alters an estimate (mesh, cost model, disk estimate, builders)."""
+    from . import budget
+    from .solver import cost, mesh, settings
+    import bodysweep.geometry as geometry
+
+    h = hashlib.sha256()
+    for mod in (mesh, cost, settings, budget):
+        h.update(Path(mod.__file__).read_bytes())
+    h.update(str(getattr(geometry, "BUILDER_VERSION", "")).encode())
+    return h.hexdigest()[:16]
+
+
+def load(root: Path) -> dict[str, dict]:
+    """The remembered estimates of a study folder that are valid for this code (empty if none)."""
+    try:
+        data = json.loads((Path(root) / FILE_NAME).read_text())
+    except (OSError, ValueError):
+        return {}
+    if not isinstance(data, dict) or data.get("code") != code_signature() or not isinstance(data.get("cases"), dict):
+        return {}
+    return data["cases"]
+
+
+def save(root: Path, estimates: dict[str, dict]) -> None:
+    """Remember ``estimates`` (case_id -> estimate) in an existing study folder; nothing if it does not exist."""
+    root = Path(root)
+    if not root.is_dir():
+        return
+    clean = {k: {kk: (None if vv != vv else vv) for kk, vv in v.items()} for k, v in estimates.items()}
+    write_text(root / FILE_NAME, json.dumps({"code": code_signature(), "cases": clean}, sort_keys=True))
+
+
+def _restore(est: dict) -> dict:
+    return {k: (float("nan") if v is None else v) for k, v in est.items()}
+
+
+def estimates(dicts: list[dict], known: dict[str, dict], compute: Callable[[dict], dict],
+              workers: int | None = None) -> dict[str, dict | Exception]:
+    """Estimates of the cases ``dicts`` (case.json content): from ``known`` where present, else computed.
+
+    Returns case_id -> estimate dict, or the exception raised for a case the mesher refuses.
+    """
+    out: dict[str, dict | Exception] = {}
+    todo = []
+    for d in dicts:
+        cid = d["case_id"]
+        if cid in known:
+            out[cid] = _restore(known[cid])
+        elif cid not in out:
+            todo.append(d)
+            out[cid] = None  # placeholder
+    workers = workers or min(os.cpu_count() or 1, 8)
+    if len(todo) >= PARALLEL_FROM and workers > 1:
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            results = list(pool.map(_safe_compute, [(compute, d) for d in todo], chunksize=16))
+    else:
+        results = [_safe_compute((compute, d)) for d in todo]
+    for d, r in zip(todo, results):
+        out[d["case_id"]] = r
+    return out
+
+
+def _safe_compute(arg):
+    compute, d = arg
+    try:
+        return compute(d)
+    except Exception as exc:  # a case the mesher refuses is reported per case, not as a crash
+        return exc
