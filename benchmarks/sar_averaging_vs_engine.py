@@ -31,7 +31,40 @@ the same run. Engine threads: ``--threads`` (default 1); our averaging is single
 
     .venv/bin/python benchmarks/sar_averaging_vs_engine.py [--cell-mm 2] [--threads 1]
 
-Measured on ...: (filled in below after the first full run)
+Measured on 2026-12-02 (shared 2-core machine, loaded by other openEMS jobs, load average ~3; openEMS
+0.0.35; ``--threads 2``), full output::
+
+    plain run: 1641804 cells, 1856 timesteps, engine loop 40.9 s, whole solve 48.5 s
+    engine averaged-SAR run: exit code 0, engine loop 41.69 s, child wall 184.5 s
+    engine log, averaging lines:
+       [   55.6 s] SAR_Calculation::CalcAveragedSAR: Stats: Valid=323232 Used=37464 Unused=39504 Air-Voxel=671934
+       [  184.3 s] SAR_Calculation::CalcAveragedSAR: Stats: Valid=222600 Used=138096 Unused=39504 Air-Voxel=671934
+       loop summary arrived at 46.620657700000265 s; lines naming a time other than the loop's: ['Creation time for operator: 4.69928 s']
+    ours 1 g: 4.26 s, peak 16.63 W/kg per W, counts {'valid': 323232, 'enclosed': 37464, 'face': 39504, 'unresolved': 0}
+    ours 10 g: 4.22 s, peak 9.327 W/kg per W, counts {'valid': 222600, 'enclosed': 138096, 'face': 39504, 'unresolved': 0}
+    brute force 1 g on (9, 10, 13) sub-grid (990 tissue voxels): 8.9 s, statuses equal True, counts {'valid': 210, 'enclosed': 294, 'face': 486, 'unresolved': 0}
+    brute force 10 g on (13, 13, 17) sub-grid (2535 tissue voxels): 23.4 s, statuses equal True, counts {'valid': 30, 'enclosed': 1543, 'face': 962, 'unresolved': 0}
+
+    machine: 2 cores, shared with other jobs (loaded); engine threads 2
+    dump grid (126, 127, 67) = 1072134 voxels (400200 tissue), 2 mm cells
+     mass    voxels  ours (s)  engine (s)  engine/ours  ours vs brute  engine vs ours peak
+    --------------------------------------------------------------------------------------
+      1 g   1072134      4.26        8.99         2.1x        3.3e-13                +9.0%
+     10 g   1072134      4.22      128.71        30.5x        1.2e-11               +14.2%
+     both   1072134      8.48      137.70        16.2x
+    cross-check: post-loop time of the engine's averaging run 142.8 s minus the plain run's 7.6 s (raw dump, reading, fields_raw.h5) = 135.2 s
+    brute force: 1 g on 1170 voxels (9 s), 10 g on 2873 voxels (23 s); statuses equal: True / True
+    voxel classes 1 g: engine {'Valid': 323232, 'Used': 37464, 'Unused': 39504}, ours valid/enclosed/face 323232/37464/39504 -> identical
+    voxel classes 10 g: engine {'Valid': 222600, 'Used': 138096, 'Unused': 39504}, ours valid/enclosed/face 222600/138096/39504 -> identical
+    targets (issue 9), 1 g: ours >= 5x faster than the engine -> NOT met (2.1x); within 1 % of the exact search -> met
+    targets (issue 9), 10 g: ours >= 5x faster than the engine -> met (30.5x); within 1 % of the exact search -> met
+
+Reading: the 10 g target (>= 5x) is met by far, the 1 g one is not on this grid (2.1x; 2.3x in an earlier
+run): the engine's time grows steeply with the cells per cube (1 g, ~5 cells per side: 9 s; 10 g, ~11: 129 s),
+ours stays near 4 s for both, so on finer grids the 1 g ratio should rise too (not measured here). Both give the same voxel classes for both masses; their
+peaks differ (+9 % / +14 %) through the face-centred cubes of the surface voxels (see
+tests/validation/test_sar_real_case.py). Timesteps vary from run to run (openEMS tests its end criterion
+every few seconds of wall time).
 """
 from __future__ import annotations
 
