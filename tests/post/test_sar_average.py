@@ -220,3 +220,26 @@ def test_too_little_tissue_gives_nan():
     r = average_sar(np.ones((3, 3, 3)), np.full((3, 3, 3), 1000.0), x, y, z, 1e-3)
     assert np.all(np.isnan(r.avg)) and np.isnan(r.peak)
     assert r.counts()["unresolved"] == 27
+
+
+def test_whole_cell_cube_flush_with_the_surface_is_valid_in_both_implementations():
+    # 1000 kg/m^3 and 2 mm cells: the 1 g cube is exactly 10 mm = 5 cells (analytic: (1e-3/1000)^(1/3)).
+    # A cube centred 5 mm below the surface is flush with it: no background, its top face in the top
+    # tissue layer, so it is valid (IEC/IEEE 62704-1:2017, valid averaging volume), and the top two layers
+    # it contains are enclosed, not face-cube voxels. The root finders land a rounding error either side
+    # of the exact side; both implementations must judge the tie alike.
+    d = 2e-3
+    x = uniform_edges(7, d)
+    y = uniform_edges(7, d)
+    z = uniform_edges(10, d, start=-14e-3)  # 7 tissue layers below z = 0, 3 air layers above
+    zc = 0.5 * (z[1:] + z[:-1])
+    rho = np.where(zc < 0, 1000.0, 0.0)[None, None, :] * np.ones((7, 7, 1))
+    rng = np.random.default_rng(3)
+    sar = np.where(rho > 0, 1.0 + 0.5 * rng.random(rho.shape) + np.exp(zc / 5e-3)[None, None, :], 0.0)
+    fast = average_sar(sar, rho, x, y, z, 1e-3)
+    ref = exact_cube_average_bruteforce(sar, rho, x, y, z, 1e-3)
+    np.testing.assert_array_equal(fast.status, ref.status)
+    np.testing.assert_allclose(fast.avg, ref.avg, rtol=1e-9, equal_nan=True)
+    flush = (3, 3, 4)  # cell centre z = -5 mm: cube spans -10 ... 0 mm
+    assert zc[4] == pytest.approx(-5e-3) and fast.status[flush] == VALID
+    assert fast.status[3, 3, 6] == ENCLOSED and fast.status[3, 3, 5] == ENCLOSED  # top two tissue layers

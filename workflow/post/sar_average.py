@@ -364,10 +364,23 @@ def _face_offsets(ax, sgn):
     return lo, hi
 
 
+def _face_tolerance(edges) -> float:
+    """Distance below which a cube face counts as lying on a mesh line (1e-9 of the smallest cell)."""
+    return 1e-9 * min(float(np.diff(e).min()) for e in edges)
+
+
 def _faces_touch_tissue(tab, lo, hi):
-    """(n,) bool: every face of the boxes has tissue in the cell layer just inside it."""
+    """(n,) bool: every face of the boxes has tissue in the cell layer just inside it.
+
+    A face within :func:`_face_tolerance` of a mesh line is taken to lie on it, so a cube whose side the
+    root finder lands a rounding error beyond a cell edge (a cube of a whole number of cells, flush with
+    the tissue surface) is judged like the exact cube.
+    """
     e = tab.edges
     n_cells = tab.shape
+    tol = _face_tolerance(e)
+    lo = lo + tol
+    hi = hi - tol
     # lateral cell ranges (cells overlapping the open interval (lo, hi))
     j0 = [np.searchsorted(e[a], lo[:, a], side="right") - 1 for a in range(3)]
     j1 = [np.searchsorted(e[a], hi[:, a], side="left") - 1 for a in range(3)]
@@ -624,7 +637,10 @@ def exact_cube_average_bruteforce(
                 b = mid
         return b
 
+    face_tol = _face_tolerance(edges)
+
     def faces_ok(lo, hi):
+        lo, hi = lo + face_tol, hi - face_tol  # a face within the tolerance of a mesh line lies on it
         for a in range(3):
             e = edges[a]
             for which, face in (("lo", lo[a]), ("hi", hi[a])):
