@@ -3,7 +3,9 @@ from __future__ import annotations
 
 import copy
 import functools
+import hashlib
 import importlib
+import json
 import itertools
 from dataclasses import dataclass, field
 from typing import Any, Callable
@@ -13,10 +15,41 @@ from bodysweep.geometry.units import from_edge_units
 from .edge_checks import check_edge_values
 from .errors import StudyError, join_path
 from .expressions import evaluate
-from .identity import canonical_json, code_versions, content2case_id
+from .identity import CASE_ID_LENGTH, _normalise, canonical_json, code_versions
 from .paths import has_path, parent_exists, path2parts, set_path
 from .schema import CaseSceneChecker
 from .study import Study, base_value, declared_solver_key
+
+
+_PLAIN = (str, int, float, bool, type(None))
+
+
+def plain_copy(obj: Any, memo: dict | None = None) -> Any:
+    """``copy.deepcopy`` of plain data (dicts, lists, scalars), several times faster, same result.
+
+    Shared containers stay shared in the copy (as with ``deepcopy``: YAML anchors give those); any
+    other type is handed to ``copy.deepcopy`` with the same memo.
+    """
+    if memo is None:
+        memo = {}
+    t = type(obj)
+    if t in _PLAIN:
+        return obj
+    if t is dict or t is list:
+        done = memo.get(id(obj))
+        if done is not None:
+            return done
+        if t is dict:
+            out: Any = {}
+            memo[id(obj)] = out
+            for k, v in obj.items():
+                out[k] = v if type(v) in _PLAIN else plain_copy(v, memo)
+        else:
+            out = []
+            memo[id(obj)] = out
+            out.extend(v if type(v) in _PLAIN else plain_copy(v, memo) for v in obj)
+        return out
+    return copy.deepcopy(obj, memo)
 
 
 @dataclass(frozen=True)
@@ -65,7 +98,7 @@ class Case:
 
     def to_dict(self) -> dict:
         """The ``case.json`` content (plain JSON-ready data, a fresh copy)."""
-        return copy.deepcopy({
+        return plain_copy({
             "case_id": self.case_id, "label": self.label, "study": self.study, "parameters": self.parameters,
             "frequency_Hz": self.frequency_Hz, "scene": self.scene, "solver": self.solver, "sar": self.sar,
             "excite_ports": list(self.excite_ports), "versions": self.versions,
@@ -117,7 +150,7 @@ def _resolver(module: str, attr: str) -> Callable[[dict], dict] | None:
         return None
 
     def resolve(d: dict) -> dict:
-        obj = build(copy.deepcopy(d))
+        obj = build(plain_copy(d))
         to_dict = getattr(obj, "to_dict", None)
         return to_dict() if callable(to_dict) else d
 
@@ -147,7 +180,7 @@ def _integer_solver_paths() -> frozenset[str]:
 
 def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz: float, label: str):
     """Edge-unit scene/solver of one case and its parameter dict (choices, then scalars, then derived)."""
-    doc = {"scene": copy.deepcopy(study.raw["scene"]), "solver": copy.deepcopy(study.raw["solver"])}
+    doc = {"scene": plain_copy(study.raw["scene"]), "solver": plain_copy(study.raw["solver"])}
     values = dict(zip(names, row))
     params = study.parameters
     parameters: dict[str, Any] = {"frequency_MHz": freq_MHz}
@@ -157,7 +190,7 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
         if not parent_exists(doc, p.path):
             raise StudyError(join_path("sweep.parameters", n, "path"), f"in case {label}: the parent of {p.path!r} "
                              "does not exist", p.path, "a path whose parent exists in every case")
-        set_path(doc, p.path, copy.deepcopy(p.options[values[n]]))
+        set_path(doc, p.path, plain_copy(p.options[values[n]]))
     for n in names:
         p = params[n]
         if p.is_choice:
@@ -198,6 +231,46 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
     return doc, parameters
 
 
+class _Memo:
+    """Per-expansion memory of work that depends on one part of a case only (keyed by ``repr``).
+
+    ``repr`` of plain data tells apart everything that could change a result (``1`` / ``1.0`` /
+    ``True``, ``-0.0``, key order), so a hit stands for the very same input.
+    """
+
+    def __init__(self):
+        self.edge_ok: set[tuple[str, str, str]] = set()  # (section, key, repr) whose edge check passed
+        self.solver: dict[str, dict] = {}  # repr of the SI solver section -> resolved settings
+        self.normal: dict[tuple[str, str], Any] = {}  # (where, repr) -> normalised identity part
+        self.scene_key: dict[str, str] = {}  # repr of an SI scene -> its canonical JSON
+
+    def check_edge_values(self, doc: dict, context: str) -> None:
+        """:func:`check_edge_values` of ``doc`` (``scene`` / ``solver`` sections), each top part once."""
+        if not all(isinstance(v, dict) for v in doc.values()):
+            check_edge_values(doc, "", context)
+            return
+        for section, part in doc.items():
+            for k, v in part.items():
+                key = (section, k, repr(v))
+                if key not in self.edge_ok:
+                    check_edge_values({k: v}, section, context)  # same walk, same messages
+                    self.edge_ok.add(key)
+
+    def normalised(self, obj: Any, where: str) -> Any:
+        key = (where, repr(obj))
+        if key not in self.normal:
+            self.normal[key] = _normalise(obj, where)
+        return self.normal[key]
+
+    def case_id(self, scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite, versions: dict) -> str:
+        """:func:`~.identity.content2case_id` of the identity content, constant parts normalised once."""
+        content = identity_content(scene, frequency_Hz, solver, sar, excite, versions)
+        normal = {k: (_normalise(v, k) if k in ("scene", "frequency_Hz") else self.normalised(v, k))
+                  for k, v in content.items()}
+        text = json.dumps(normal, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()[:CASE_ID_LENGTH]
+
+
 def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     """All cases of a study, in a fixed order: frequencies outermost, then the product of the blocks.
 
@@ -227,13 +300,15 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     checker = CaseSceneChecker()  # validates each distinct part of the swept scenes once
     resolved: dict[str, dict] = {}  # canonical SI scene -> builder-resolved scene (frequency-independent)
     varies = bool(study.blocks or study.derived)  # otherwise the base scene was validated at load time
+    memo = _Memo()
+    fresh: set[str] = set()  # resolved scenes not yet handed to a case (no copy needed the first time)
     for f_Hz in study.frequencies_Hz:
         f_MHz = f_Hz / 1e6
         for row in combos:
             items = [(n, v, study.parameters[n].unit) for n, v in zip(names, row)]
             label = case_label(f_MHz, items)
             doc, parameters = _apply(study, names, row, f_MHz, label)
-            check_edge_values(doc, "", f"in case {label}")
+            memo.check_edge_values(doc, f"in case {label}")
             if varies and check_scene:
                 checker.check(doc["scene"], f"in case {label}")
             scene_si = from_edge_units(doc["scene"])
@@ -241,29 +316,39 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             solver_si["excite_ports"] = list(excite)
             if scene_resolve is not None:
                 try:
-                    key = canonical_json(scene_si)
+                    text = repr(scene_si)
+                    key = memo.scene_key.get(text)
+                    if key is None:
+                        key = memo.scene_key[text] = canonical_json(scene_si)
                     if key not in resolved:
                         resolved[key] = scene_resolve(scene_si)
-                    scene_si = copy.deepcopy(resolved[key])
+                        fresh.add(key)
+                    if key in fresh:
+                        fresh.discard(key)
+                        scene_si = resolved[key]
+                    else:
+                        scene_si = plain_copy(resolved[key])
                 except (ValueError, TypeError, KeyError) as exc:
                     raise StudyError("scene", f"in case {label}: {exc}", None, "a scene the builders accept",
                                      show_value=False) from None
             if solver_resolve is not None:
                 try:
-                    solver_si = solver_resolve(solver_si)
+                    text = repr(solver_si)
+                    if text not in memo.solver:
+                        memo.solver[text] = solver_resolve(solver_si)
+                    solver_si = plain_copy(memo.solver[text])
                 except (ValueError, TypeError, KeyError) as exc:
                     raise StudyError("solver", f"in case {label}: {exc}", None, "settings the solver accepts",
                                      show_value=False) from None
             if 2 in excite and not scene_si.get("implant"):
                 raise StudyError("excite", f"port 2 is the implant antenna's feed, but case {label} has no implant",
                                  list(excite), "[1] for a scene without implant")
-            content = identity_content(scene_si, f_Hz, solver_si, sar, excite, versions)
-            case_id = content2case_id(content)
+            case_id = memo.case_id(scene_si, f_Hz, solver_si, sar, excite, versions)
             if case_id in seen:
                 continue
             seen.add(case_id)
             cases.append(Case(case_id=case_id, label=label, study=study.name, parameters=parameters,
-                              frequency_Hz=f_Hz, scene=scene_si, solver=solver_si, sar=copy.deepcopy(sar),
+                              frequency_Hz=f_Hz, scene=scene_si, solver=solver_si, sar=plain_copy(sar),
                               excite_ports=excite, versions=dict(versions)))
     return cases
 

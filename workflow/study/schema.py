@@ -224,6 +224,7 @@ class CaseSceneChecker:
         self._properties = set(contents.get("properties", {}))
         self._shapes: set[tuple] = set()
         self._parts: set[tuple[str, str]] = set()
+        self._seen: set[tuple[str, str]] = set()  # (key, repr) of parts known valid: no canonical text needed
         self._validators: dict[str, jsonschema.Draft202012Validator] = {}
 
     def _part_validator(self, key: str) -> jsonschema.Draft202012Validator:
@@ -239,14 +240,19 @@ class CaseSceneChecker:
             validate_case_scene(scene, context)
             return
         shape = tuple(sorted(scene))
-        parts = [(k, self._text(v)) for k, v in scene.items()]
         if shape not in self._shapes or any(k not in self._properties for k in scene):
             validate_case_scene(scene, context)
             self._shapes.add(shape)
-            self._parts.update(parts)
+            self._parts.update((k, self._text(v)) for k, v in scene.items())
+            self._seen.update((k, repr(v)) for k, v in scene.items())
             return
-        for (k, text), v in zip(parts, scene.values()):
+        for k, v in scene.items():
+            seen = (k, repr(v))
+            if seen in self._seen:
+                continue
+            text = self._text(v)
             if (k, text) in self._parts:
+                self._seen.add(seen)
                 continue
             errors = list(self._part_validator(k).iter_errors(v))
             if errors:
@@ -254,3 +260,4 @@ class CaseSceneChecker:
                 raise StudyError(err.key_path, f"{err.problem} {context}", err.value, err.allowed,
                                  show_value=err.show_value)
             self._parts.add((k, text))
+            self._seen.add(seen)
