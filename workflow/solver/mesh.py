@@ -27,6 +27,7 @@ Everything is in metres.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -185,18 +186,32 @@ def size_envelope(x: np.ndarray, limits: np.ndarray, slope: float) -> np.ndarray
     return np.min(h + slope * dist, axis=1)
 
 
-def equidistribute(a: float, b: float, limits: np.ndarray, slope: float) -> np.ndarray:
+def _samples(a: float, b: float, limits: np.ndarray, slope: float) -> int:
+    """Number of sample points over ``[a, b]`` that resolve the size envelope (8 per smallest cell)."""
+    return _sample_count(b - a, float(size_envelope(np.array([a, b]), limits, slope).min()),
+                         float(limits[:, 2].min()), slope)
+
+
+def _sample_count(span: float, s_ends: float, h_min: float, slope: float) -> int:
+    """:func:`_samples` from the envelope's smaller end value ``s_ends`` and the finest limit ``h_min``."""
+    s_min = min(s_ends, h_min + slope * span)
+    return min(max(math.ceil(8 * span / max(s_min, 1e-12)), 17), 20001)
+
+
+def equidistribute(a: float, b: float, limits: np.ndarray, slope: float,
+                   sampled: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """Interior lines between fixed lines ``a < b`` so that no cell exceeds the size envelope.
 
     The number of cells is the integral of ``1 / s(x)`` rounded up; lines sit at equal steps of that
     integral, so cells follow the shape of the size field ``s``. Returns shape ``(n - 1,)``.
+    ``sampled`` is ``(xs, s(xs))`` on the sample points of :func:`_samples` when already known.
     """
     span = b - a
-    s_min = float(size_envelope(np.array([a, b]), limits, slope).min())
-    s_min = min(s_min, float(limits[:, 2].min()) + slope * span)
-    m = int(np.clip(np.ceil(8 * span / max(s_min, 1e-12)), 17, 20001))
-    xs = np.linspace(a, b, m)
-    w = 1.0 / size_envelope(xs, limits, slope)
+    if sampled is None:
+        xs = np.linspace(a, b, _samples(a, b, limits, slope))
+        w = 1.0 / size_envelope(xs, limits, slope)
+    else:
+        xs, w = sampled[0], 1.0 / sampled[1]
     dx = np.diff(xs)
 
     def cumulative(v):
@@ -507,13 +522,52 @@ def _requirements(model: SceneModel, settings: SolverSettings, lo: np.ndarray, h
 
 def cells_needed(a: float, b: float, limits: np.ndarray, slope: float) -> float:
     """Integral of ``1 / s(x)`` over ``[a, b]`` for the size envelope ``s`` (a fractional cell count)."""
-    span = b - a
-    s_min = min(float(size_envelope(np.array([a, b]), limits, slope).min()),
-                float(limits[:, 2].min()) + slope * span)
-    m = int(np.clip(np.ceil(8 * span / max(s_min, 1e-12)), 17, 20001))
-    xs = np.linspace(a, b, m)
-    w = 1.0 / size_envelope(xs, limits, slope)
+    xs = np.linspace(a, b, _samples(a, b, limits, slope))
+    return _integral(xs, size_envelope(xs, limits, slope))
+
+
+def _integral(xs: np.ndarray, s: np.ndarray) -> float:
+    w = 1.0 / s
     return float(np.sum(0.5 * (w[1:] + w[:-1]) * np.diff(xs)))
+
+
+class _GapEnvelope:
+    """The size envelope sampled over one gap between fixed lines, updated as limits are added.
+
+    The envelope is a minimum over the limit rows, so folding in only the new rows gives the very
+    same samples as evaluating all rows again (and the same cell count when none of them is lower).
+    """
+
+    def __init__(self, a: float, b: float):
+        self.a, self.b = a, b
+        self.xs = self.s = None
+        self.s_max = 0.0
+        self.rows = 0  # limit rows folded in
+        self.cells = 0.0
+
+    def cells_needed(self, limits: np.ndarray, slope: float, s_ends: float, h_min: float) -> float:
+        """:func:`cells_needed` over the gap for ``limits`` (whose first rows are those seen before).
+
+        ``s_ends`` is the smaller envelope value at the two ends, ``h_min`` the finest limit.
+        """
+        m = _sample_count(self.b - self.a, s_ends, h_min, slope)
+        if self.xs is None or len(self.xs) != m:
+            self.xs = np.linspace(self.a, self.b, m)
+            self.s = size_envelope(self.xs, limits, slope)
+            self.s_max = float(self.s.max())
+            self.cells = _integral(self.xs, self.s)
+        elif len(limits) > self.rows:
+            new = limits[self.rows:]
+            # lowest value the new rows take over the gap (rounding is monotonic, so no sample is lower)
+            floor = new[:, 2] + slope * np.maximum(0.0, np.maximum(new[:, 0] - self.b, self.a - new[:, 1]))
+            if float(floor.min()) < self.s_max:
+                vals = size_envelope(self.xs, new, slope)
+                if np.any(vals < self.s):
+                    self.s = np.minimum(self.s, vals)
+                    self.s_max = float(self.s.max())
+                    self.cells = _integral(self.xs, self.s)
+        self.rows = len(limits)
+        return self.cells
 
 
 def _axis_lines(fixed: list[tuple[float, int, str]], limits: np.ndarray, ratio: float) -> np.ndarray:
@@ -526,19 +580,26 @@ def _axis_lines(fixed: list[tuple[float, int, str]], limits: np.ndarray, ratio: 
     # them uniform cells and make that size a limit too, so that the neighbours grade from it
     cap = np.full(len(gaps), np.inf)
     short = _short_gap_cells(ratio)
+    envelopes = [_GapEnvelope(a, b) for a, b in zip(pos[:-1], pos[1:])]
+    ends = size_envelope(pos, lim, slope)  # the envelope at the fixed lines, kept current as limits come
+    h_min = float(lim[:, 2].min())
     for _ in range(200):
         changed = False
         for k, (a, b) in enumerate(zip(pos[:-1], pos[1:])):
-            n = max(1, int(np.ceil(cells_needed(a, b, lim, slope) - 1e-9)))
+            s_ends = float(min(ends[k], ends[k + 1]))
+            n = max(1, int(np.ceil(envelopes[k].cells_needed(lim, slope, s_ends, h_min) - 1e-9)))
             if n <= short and gaps[k] / n < cap[k] * (1 - 1e-9):
                 cap[k] = gaps[k] / n
                 lim = np.vstack([lim, [a, b, cap[k]]])
+                ends = np.minimum(ends, size_envelope(pos, lim[-1:], slope))
+                h_min = min(h_min, float(cap[k]))
                 changed = True
         if not changed:
             break
     out = [pos[:1]]
-    for a, b in zip(pos[:-1], pos[1:]):
-        out.append(equidistribute(a, b, lim, slope))
+    for k, (env, a, b) in enumerate(zip(envelopes, pos[:-1], pos[1:])):
+        env.cells_needed(lim, slope, float(min(ends[k], ends[k + 1])), h_min)  # current for the final limits
+        out.append(equidistribute(a, b, lim, slope, sampled=(env.xs, env.s)))
         out.append(np.array([b]))
     lines = np.concatenate(out)
     return repair_grading(lines, ratio, fixed=pos)
