@@ -2,8 +2,30 @@
 
 Calibration (2026-12-02, this project's 2-core shared development machine, openEMS 0.0.35 Debian,
 one engine thread, load average about 4-6 from other users): ``throughput_probe`` runs of 29 791 ...
-753 571 engine cells gave 70-86 MCells/s and a peak RSS of 116 MB + 102 B per engine cell (Mur).
-Re-measure with :func:`calibrate` (``benchmarks/solver_throughput.py``).
+753 571 engine cells gave 70-86 MCells/s (Mur). Re-measure with :func:`calibrate`
+(``benchmarks/solver_throughput.py``).
+
+Memory (refit 2026-12-02 from the peak RSS of real case children, port 1 with its SAR dump, which is
+the largest of a case's runs): Mur, 31 500 ... 1 128 600 cells: 78 MB + 164 B per cell (least squares);
+the model is rounded up to 90 MB + 165 B per cell, +6 ... +14 % over every measured run. PML runs
+(110 044 ... 1 785 616 cells, 79 k ... 624 k of them in the 8-cell layers) need up to 85 B more per
+layer cell than that; ``MEMORY_PER_PML_CELL_B`` = 130 B keeps them +6 ... +15 % over the measurement.
+
+CPU work: one PML-layer cell costs 3.1 ... 3.4 interior cells per timestep (child CPU seconds of the
+PML runs against the Mur rate, same day), ``PML_WORK_FACTOR`` = 3.4.
+
+Timesteps: openEMS' Gaussian excitation (``SetGaussExcite(f0, fc)``) has the envelope
+``exp(-((t - t0) / tau)^2)`` with ``t0 = 9 / (2 pi fc)`` and ``tau = 3 / (2 pi fc)``; the field energy,
+quadratic in the fields, follows the envelope squared, so a field that only follows the source falls to
+the end criterion ``10^(dB/10)`` of its peak at ``t0 + tau sqrt(ln(10^(-dB/10)) / 2)``, before the end of
+the pulse (``2 t0``). What the domain stores decays slower, by ``RING_DOWN_DB_PER_TRANSIT`` dB per light
+transit of the domain diagonal (lower for Mur, which reflects a few per cent, than for PML; fitted to the
+energy the solver logs at each test: Mur 14 dB at -30 dB (262 k cells), >= 10 dB at -50 dB; PML 26 dB at
+-30 and -50 dB (243 k cells); rounded down, so more steps). The run ends
+at the first end-criterion test after the later of the two: openEMS tests the energy only when more
+than ``ENERGY_CHECK_INTERVAL_S`` = 4 s of wall time have passed since its last test (``if (t_diff>4)``
+in ``openEMS::RunFDTD``), so a run lasts a whole number of 4 s intervals, at least one, and a small
+case takes ``4 s x rate / cells`` steps however short its physics (machine-speed dependent).
 """
 from __future__ import annotations
 
@@ -21,11 +43,16 @@ TIMESTEP_FACTOR = 1.0
 #: single-thread engine throughput, engine cells x timesteps per second (measured 2026-12-02, see above)
 CALIBRATED_CELLS_PER_S = 75e6
 CALIBRATION_NOTE = "2026-12-02, bodysweep dev machine (2 shared cores), openEMS 0.0.35, 1 thread"
-#: peak memory model: base + per engine cell (+ PML cells counted again for the PML extension arrays)
-MEMORY_BASE_B = 160e6  # probe fit 116 MB plus the case child's Python imports (rounded up)
-MEMORY_PER_CELL_B = 102.0
-#: ring-down model: energy decay time constant in domain light-transit times (rounded, to refine)
-RING_DOWN_TRANSITS_PER_10DB = 3.0
+#: peak memory model: base + per engine cell + per cell of the PML layers (see the module docstring)
+MEMORY_BASE_B = 90e6  # case child: Python, numpy, CSXCAD, openEMS; fit 78 MB, rounded up
+MEMORY_PER_CELL_B = 165.0  # fields, operator, the port-1 SAR dump; fit 164 B
+MEMORY_PER_PML_CELL_B = 130.0  # UPML extension arrays; the largest measured need 85 B
+#: openEMS tests its energy end criterion when more than this wall time has passed since the last test
+ENERGY_CHECK_INTERVAL_S = 4.0
+#: ring-down of the energy the domain stores, dB per light transit of the domain diagonal, per boundary
+RING_DOWN_DB_PER_TRANSIT = {"mur": 12.0, "pml": 24.0}
+#: CPU work of one PML cell per timestep relative to an interior cell (openEMS' UPML extension)
+PML_WORK_FACTOR = 3.4
 
 
 @dataclass(frozen=True)
@@ -65,6 +92,31 @@ def gaussian_pulse_length_s(fc_Hz: float) -> float:
     return 9.0 / (math.pi * fc_Hz)
 
 
+def memory_estimate(cells: int, pml_cells: int = 0) -> float:
+    """Peak resident memory of one engine run (the case child process), bytes; an upper bound."""
+    return MEMORY_BASE_B + MEMORY_PER_CELL_B * cells + MEMORY_PER_PML_CELL_B * pml_cells
+
+
+def source_decay_s(fc_Hz: float, end_criterion_dB: float) -> float:
+    """Time after the pulse start at which the squared Gaussian envelope has fallen to the end criterion.
+
+    ``t0 + tau sqrt(ln(10^(-dB/10)) / 2)`` with ``t0 = 9 / (2 pi fc)``, ``tau = 3 / (2 pi fc)`` (openEMS'
+    Gaussian excitation, see the module docstring).
+    """
+    w = 2.0 * math.pi * fc_Hz
+    return 9.0 / w + 3.0 / w * math.sqrt(abs(end_criterion_dB) / 10.0 * math.log(10.0) / 2.0)
+
+
+def stop_timestep(physical_steps: int, steps_per_check: float, max_timesteps: int) -> int:
+    """Timestep at which openEMS stops: the first end-criterion test at or after ``physical_steps``.
+
+    Tests fall every ``steps_per_check`` steps (4 s of wall time at the engine's rate); the cap
+    ``max_timesteps`` ends the run regardless.
+    """
+    k = max(1, math.ceil(physical_steps / steps_per_check))
+    return int(min(max_timesteps, math.ceil(k * steps_per_check)))
+
+
 def estimate(plan, model, settings) -> CostEstimate:
     """Cost of one case from its mesh plan, scene and settings (no solver run)."""
     from .run import excitation_pulse
@@ -78,15 +130,19 @@ def estimate(plan, model, settings) -> CostEstimate:
     f0, fc = excitation_pulse(model.frequency_Hz, settings.band_fraction)
     pulse = int(math.ceil(gaussian_pulse_length_s(fc) / dt))
     diag = float(np.sqrt(sum((v[-1] - v[0]) ** 2 for v in lines)))
-    ring_s = RING_DOWN_TRANSITS_PER_10DB * abs(settings.end_criterion_dB) / 10.0 * diag / C0
-    steps = min(settings.max_timesteps, pulse + int(math.ceil(ring_s / dt)))
+    db = abs(settings.end_criterion_dB)
+    transit_s = diag / C0
+    ring_s = 9.0 / (2.0 * math.pi * fc) + db / RING_DOWN_DB_PER_TRANSIT[settings.boundary] * transit_s
+    physical = int(math.ceil(max(source_decay_s(fc, settings.end_criterion_dB), ring_s) / dt))
     pml = settings.absorbing_cells
     pml_cells = cells - int(np.prod([max(1, n - 2 * pml) for n in nl])) if pml else 0
-    mem = MEMORY_BASE_B + MEMORY_PER_CELL_B * (cells + pml_cells)
+    work = cells + (PML_WORK_FACTOR - 1.0) * pml_cells  # interior-cell updates per timestep
+    steps = stop_timestep(physical, ENERGY_CHECK_INTERVAL_S * CALIBRATED_CELLS_PER_S / work, settings.max_timesteps)
+    mem = memory_estimate(cells, pml_cells)
     n_exc = len(settings.excite_ports)
     # the engine's own SAR averaging (opt-in) repeats the run of port 1
     runs = n_exc + int(bool(getattr(settings, "engine_sar_average", False)) and 1 in settings.excite_ports)
-    cpu = runs * cells * steps / CALIBRATED_CELLS_PER_S
+    cpu = runs * work * steps / CALIBRATED_CELLS_PER_S
     return CostEstimate(cells=cells, mesh_cells=mesh_cells, timestep_s=dt, pulse_timesteps=pulse, timesteps=steps,
                         memory_bytes=float(mem), cpu_seconds=float(cpu), n_excitations=n_exc)
 
