@@ -34,6 +34,11 @@ rate (75 MC/s); the medium case's physics ends (about 3 400 steps) near that fir
 after one or two tests depending on the load. Memory was refit on these and six more runs (512 k and
 1.13 M cells Mur, three to 1.79 M cells PML): +6 ... +15 % over every measured peak (the table in
 tests/solver/test_cost.py).
+
+``--boundary pml`` (110 044 / 242 844 / 518 446 cells, 8-cell PML), after: timesteps +13.9 / +0.5 / +16.5,
+peak memory +15.2 / +11.7 / +6.0, CPU s engine loop +12.2 / -19.9 / -1.0, whole child +48.2 / +22.0 /
++41.3 % (actual 3050 / 3840 / 4816 steps); the former model gave 11 904 / 15 046 / 23 818 steps
+(+284 / +274 / +404 %) and 179 / 200 / 239 MB (+74 / +50 / +21 %) for the same cases.
 """
 from __future__ import annotations
 
