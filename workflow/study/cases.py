@@ -265,8 +265,14 @@ class _Memo:
     def case_id(self, scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite, versions: dict) -> str:
         """:func:`~.identity.content2case_id` of the identity content, constant parts normalised once."""
         content = identity_content(scene, frequency_Hz, solver, sar, excite, versions)
-        normal = {k: (_normalise(v, k) if k in ("scene", "frequency_Hz") else self.normalised(v, k))
-                  for k, v in content.items()}
+        normal = {}
+        for k, v in content.items():  # in content order, so a refused value is named as before
+            if k == "frequency_Hz":
+                normal[k] = _normalise(v, k)
+            elif k == "scene" and isinstance(v, dict) and all(isinstance(n, str) for n in v):
+                normal[k] = {n: self.normalised(part, f"scene.{n}") for n, part in v.items()}  # as _normalise
+            else:
+                normal[k] = self.normalised(v, k)
         text = json.dumps(normal, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:CASE_ID_LENGTH]
 
