@@ -65,7 +65,11 @@ def case_disk_estimate(case: dict, cells: float) -> dict[str, float]:
     sar = case.get("sar") or {}
     masses = sar.get("masses_kg") or sar.get("masses_g") or [0.001, 0.01]
     ports = case.get("excite_ports") or (case.get("solver") or {}).get("excite_ports") or [1]
-    return case_disk_bytes(cells, len(masses), len(ports))
+    out = case_disk_bytes(cells, len(masses), len(ports))
+    if (case.get("solver") or {}).get("mirror_plane"):
+        # a half-domain run solves ``cells`` but keeps its fields unfolded onto the full grid
+        out["disk_B"] = case_disk_bytes(2.0 * float(cells), len(masses), len(ports))["disk_B"]
+    return out
 
 
 def free_disk_GB(path: str | Path) -> float:

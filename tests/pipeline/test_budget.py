@@ -70,6 +70,19 @@ def test_disk_estimate_hand_calculation():
     assert np.isnan(case_disk_bytes(float("nan"))["disk_B"])
 
 
+def test_half_domain_case_keeps_full_grid_fields():
+    # mirror_plane solves half the cells but stores the fields unfolded onto the full grid (image theory:
+    # the other half is the mirror image), so what the case keeps is the full grid's; the scratch is the half's
+    from bodysweep.workflow.budget import case_disk_estimate
+
+    case = {"sar": {"masses_kg": [1e-3, 1e-2]}, "excite_ports": [1], "solver": {}}
+    half = {**case, "solver": {"mirror_plane": "x"}}
+    full = case_disk_estimate(case, 2e5)
+    mirrored = case_disk_estimate(half, 1e5)
+    assert mirrored["disk_B"] == pytest.approx(full["disk_B"], rel=1e-12)
+    assert mirrored["scratch_B"] == pytest.approx(full["scratch_B"] / 2, rel=1e-12)
+
+
 @pytest.mark.solver
 @pytest.mark.timeout(600)
 def test_accept_cost_runs_and_the_disk_estimate_bounds_the_real_files(tmp_path):
