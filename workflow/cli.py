@@ -80,9 +80,18 @@ def _check_geometry(dicts: list[dict]) -> int:
             continue
         seen.add(key)
         try:
-            _build_model(d)
+            model = _build_model(d)
         except (ValueError, KeyError, TypeError) as exc:
             raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): geometry: {' '.join(str(exc).split())}") from None
+        plane = (d.get("solver") or {}).get("mirror_plane")
+        if plane:  # a half-domain solve needs a mirror-symmetric scene: refuse before any job starts
+            from .solver.mirror import check_symmetric
+
+            try:
+                check_symmetric(model, plane)
+            except ValueError as exc:
+                raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): solver.mirror_plane: "
+                                    f"{' '.join(str(exc).split())}") from None
     return len(seen)
 
 
