@@ -1,7 +1,8 @@
 """The bad-input corpus (tests/study/bad_inputs/) through the command line: `check`, `plan` and `run` each
 refuse every file with exit 2 and one error line naming the key path of expected.yaml, and write nothing.
 
-tests/study/test_bad_inputs.py checks the study layer's StudyError; this checks what a user sees."""
+tests/study/test_bad_inputs.py checks the study layer's StudyError; this checks what a user sees.
+Reference: common practice for command-line tools (non-zero exit, message on stderr, no partial output)."""
 from pathlib import Path
 
 import pytest

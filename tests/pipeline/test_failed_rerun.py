@@ -3,7 +3,8 @@ says so with exit 3, `run --skip-failed` reruns nothing and leaves every file as
 --retry-failed` reruns exactly the failed case (the finished one stays byte-identical) and then succeeds.
 
 test_failures.py covers a case that fails for a reason of its own (energy decay not reached) and the
-job counts Snakemake schedules; this file covers the end-to-end command-line behaviour."""
+job counts Snakemake schedules; this file covers the end-to-end command-line behaviour.
+Reference: common practice for batch pipelines (a failed job does not stop the others; reruns redo only what failed)."""
 import json
 import os
 import signal
