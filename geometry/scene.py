@@ -11,7 +11,6 @@ with the materials evaluated at that frequency.
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass
 from typing import Any, Mapping
 
@@ -22,7 +21,7 @@ from .concentrators import CONCENTRATOR_TYPES, Concentrator, concentrator_from_d
 from .model import SceneModel
 from .phantoms import SHELL_MATERIAL, LayeredCylinder, LiquidBox, NoPhantom, Phantom, phantom_from_dict
 from .primitives import Box, Cylinder, Primitive, Vec3
-from .shapes import distance_to_box, sample_points
+from .shapes import clearance_to_box, sample_points
 from .specs import positive
 from .tissues import MaterialSpec, is_builtin, material_spec_from_dict, resolve_material
 from .units import from_edge_units
@@ -150,10 +149,7 @@ class Scene:
             prims = c.build(anchors, name)
             if self.implant is None:
                 continue
-            dmin = math.inf
-            for p in prims:
-                pts, r = sample_points(p, 1e-4)
-                dmin = min(dmin, float(distance_to_box(pts, klo, khi).min()) - r)
+            dmin = min(clearance_to_box(p, klo, khi, 1e-4) for p in prims)
             if dmin < self.min_clearance_m:
                 raise ValueError(f"{name} is {dmin * 1e3:.3g} mm from the implant; the minimum clearance is "
                                  f"{self.min_clearance_m * 1e3:.3g} mm (min_clearance_m)")

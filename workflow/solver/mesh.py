@@ -351,7 +351,7 @@ def merge_fixed_lines(cands: list[tuple[float, int, str]], threshold: float) -> 
         gone = merged[drop]
         if gone[1] == P_PORT and keep[1] == P_PORT:
             raise MeshRefused(f"port lines at {a[0]*1e3:.4f} mm ({a[2]}) and {b[0]*1e3:.4f} mm ({b[2]}) are closer "
-                              f"than the merge threshold {threshold*1e3:.4f} mm; lower min_cell_m")
+                              f"than the merge threshold {threshold*1e3:.4f} mm; lower the solver's min_cell_mm")
         del merged[drop]
     return [tuple(m) for m in merged]  # type: ignore[misc]
 
@@ -695,9 +695,11 @@ def check_mesh(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> N
         bad = np.nonzero(h < limit)[0]
         if len(bad):
             pairs = "; ".join(f"{ln[j]*1e3:.6f} mm and {ln[j+1]*1e3:.6f} mm" for j in bad[:5])
-            raise MeshRefused(f"{a}: sliver cell(s) of {h[bad].min()*1e6:.3f} um between lines {pairs}; the smallest "
+            now = "derived" if settings.min_cell_m is None else f"{settings.min_cell_m*1e3:g} mm"
+            raise MeshRefused(f"{a}: sliver cell(s) of {h[bad].min()*1e3:.4f} mm between lines {pairs}; the smallest "
                               f"geometric feature is {feature*1e3:.4f} mm, cells below {SLIVER_FRACTION} of it "
-                              f"({limit*1e3:.4f} mm) are refused - raise min_cell_m or fix the geometry")
+                              f"({limit*1e3:.4f} mm) are refused - raise the solver's min_cell_mm (now {now}) "
+                              "or fix the geometry")
     for i, a in enumerate(AXES):
         ln = plan.lines(i)
         h = np.diff(ln)
