@@ -152,7 +152,7 @@ class Scene:
             dmin = min(clearance_to_box(p, klo, khi, 1e-4) for p in prims)
             if dmin < self.min_clearance_m:
                 raise ValueError(f"{name} is {dmin * 1e3:.3g} mm from the implant; the minimum clearance is "
-                                 f"{self.min_clearance_m * 1e3:.3g} mm (min_clearance_m)")
+                                 f"{self.min_clearance_m * 1e3:.3g} mm (min_clearance_mm)")
 
     # ------------------------------------------------------------------ build
     def build(self, frequency_Hz: float) -> SceneModel:
