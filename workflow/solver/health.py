@@ -17,6 +17,8 @@ from __future__ import annotations
 import math
 import re
 
+from .cost import gaussian_pulse_length_s, source_decay_s
+
 __all__ = ["GROWTH_DB", "DIVERGED_LINE", "excitation_timesteps", "excitation_passed_timesteps", "judge_run"]
 
 #: a progress line of the engine whose energy figure is not a finite number
@@ -35,24 +37,22 @@ def excitation_timesteps(fc_Hz: float, timestep_s: float) -> int:
     """Timesteps of the engine's whole Gaussian pulse of -20 dB half-bandwidth ``fc_Hz``.
 
     openEMS 0.0.35 (``FDTD/excitation.cpp``, ``CalcGaussianPulsExcitation``) samples
-    ``cos(2 pi f0 (t - t0)) exp(-(2 pi fc t / 3 - 3)^2)``, ``t0 = 9 / (2 pi fc)``, over ``2 t0``:
-    ``ceil(9 / (pi fc dt))`` timesteps.
+    ``cos(2 pi f0 (t - t0)) exp(-(2 pi fc t / 3 - 3)^2)``, ``t0 = 9 / (2 pi fc)``, over ``2 t0``
+    (:func:`.cost.gaussian_pulse_length_s`): ``ceil(9 / (pi fc dt))`` timesteps.
     """
     if not (fc_Hz > 0 and timestep_s > 0):
         raise ValueError(f"excitation length: need fc > 0 and a timestep > 0, got fc={fc_Hz} Hz, dt={timestep_s} s")
-    return int(math.ceil(9.0 / (math.pi * fc_Hz * timestep_s) - 1e-9))
+    return int(math.ceil(gaussian_pulse_length_s(fc_Hz) / timestep_s - 1e-9))
 
 
 def excitation_passed_timesteps(fc_Hz: float, timestep_s: float, end_criterion_dB: float) -> int:
-    """Timesteps until the pulse's envelope, past its centre, has fallen to the end criterion.
+    """Timesteps until the pulse's squared envelope, past its centre, has fallen to the end criterion.
 
-    The envelope ``exp(-(2 pi fc t / 3 - 3)^2)`` (see :func:`excitation_timesteps`) falls to the
-    amplitude ``a = 10^(end_dB / 20)`` (the criterion is an energy ratio) at
-    ``t = 3 (3 + sqrt(-ln a)) / (2 pi fc)`` (analytic); a run that ends earlier has not yet been
-    driven by the part of the pulse above its own end criterion. Never longer than the whole pulse.
+    That is :func:`.cost.source_decay_s` (``t0 + tau sqrt(|dB| ln(10) / 20)``, ``tau = 3 / (2 pi fc)``,
+    analytic for the envelope above); a run that ends earlier has not yet been driven by the part
+    of the pulse above its own end criterion. Never longer than the whole pulse.
     """
-    a = 10.0 ** (min(float(end_criterion_dB), 0.0) / 20.0)
-    t = 3.0 * (3.0 + math.sqrt(-math.log(a))) / (2.0 * math.pi * fc_Hz)
+    t = source_decay_s(fc_Hz, min(float(end_criterion_dB), 0.0))
     return min(excitation_timesteps(fc_Hz, timestep_s), int(math.ceil(t / timestep_s - 1e-9)))
 
 
