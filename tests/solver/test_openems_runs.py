@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 from bodysweep.geometry.model import SceneModel
+from bodysweep.workflow.solver import ADAPTER_VERSION
 from bodysweep.workflow.solver.case import finish_case
 from bodysweep.workflow.solver.run import solve_excitation
 
@@ -75,7 +76,7 @@ def test_finish_writes_touchstone_result_and_metrics(two_port_case):
         avg10 = h5["sar/avg_10g"][()]
         local = h5["sar/local"][()]
         rho = h5["sar/density_kg_m3"][()]
-        assert json.loads(h5.attrs["versions"])["adapter"] == "1"
+        assert json.loads(h5.attrs["versions"])["adapter"] == ADAPTER_VERSION
         assert "materials" in json.loads(h5.attrs["scene"])
     assert np.allclose(ntw.f, f_band) and np.allclose(ntw.s, S_band, atol=1e-9)
     assert f_band[0] == pytest.approx(F0 * 0.85) and f_band[-1] == pytest.approx(F0 * 1.15)
