@@ -17,6 +17,7 @@ entry lies in the checkout and that every ``bodysweep`` module was loaded from t
 import csv
 import json
 import os
+import shutil
 import subprocess
 import sys
 import sysconfig
@@ -32,6 +33,8 @@ CHECKOUT = Path(__file__).resolve().parents[2]
 TINY = CHECKOUT / "tests" / "pipeline" / "data" / "tiny.yaml"
 ENGINE_PY = CHECKOUT / ".engine" / "py"
 
+#: what the package is built from
+SOURCE_FILES = ("pyproject.toml", "setup.py", "README.md", "api", "geometry", "workflow")
 #: package data the installed package must hold (paths inside the wheel)
 DATA_FILES = ("bodysweep/workflow/Snakefile", "bodysweep/workflow/schema/study.schema.json",
               "bodysweep/workflow/schema/solver.schema.json", "bodysweep/geometry/data/scene.schema.json",
@@ -55,8 +58,17 @@ def _source_modules() -> set[str]:
 def installed(tmp_path_factory):
     """``(venv folder, wheel path)``: the wheel built from the checkout, installed into a fresh venv."""
     base = tmp_path_factory.mktemp("wheel")
+    # built from a copy of the files a source distribution holds: a build/ folder left in the checkout
+    # by an earlier build could otherwise carry modules that no longer exist into the wheel
+    src = base / "src"
+    for name in SOURCE_FILES:
+        if (CHECKOUT / name).is_dir():
+            shutil.copytree(CHECKOUT / name, src / name, ignore=shutil.ignore_patterns("__pycache__"))
+        else:
+            (src / name).parent.mkdir(parents=True, exist_ok=True)
+            shutil.copy2(CHECKOUT / name, src / name)
     wheels = base / "dist"
-    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "-q", "-w", str(wheels), str(CHECKOUT)],
+    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "-q", "-w", str(wheels), str(src)],
                    check=True, capture_output=True, text=True, timeout=600)
     (wheel,) = wheels.glob("bodysweep-*.whl")
     venv = base / "venv"
