@@ -37,7 +37,7 @@ def code_signature() -> str:
     h = hashlib.sha256()
     for mod in (mesh, cost, settings, budget, estimate):
         h.update(Path(mod.__file__).read_bytes())
-    h.update(str(getattr(geometry, "BUILDER_VERSION", "")).encode())
+    h.update(str(geometry.BUILDER_VERSION).encode())
     return h.hexdigest()[:16]
 
 

@@ -188,8 +188,7 @@ def estimate(plan, model, settings) -> CostEstimate:
     """Cost of one case from its mesh plan, scene and settings (no solver run)."""
     from .run import excitation_pulse
 
-    nl = [len(plan.lines(i)) if hasattr(plan, "lines") else len(getattr(plan, f"lines_{a}"))
-          for i, a in enumerate("xyz")]
+    nl = [len(plan.lines(i)) for i in range(3)]
     lines = [np.asarray(getattr(plan, f"lines_{a}"), float) for a in "xyz"]
     cells = int(np.prod([len(v) for v in lines]))
     mesh_cells = int(np.prod([len(v) - 1 for v in lines]))
@@ -208,7 +207,7 @@ def estimate(plan, model, settings) -> CostEstimate:
     mem = memory_estimate(cells, pml_cells)
     n_exc = len(settings.excite_ports)
     # the engine's own SAR averaging (opt-in) repeats the run of port 1
-    runs = n_exc + int(bool(getattr(settings, "engine_sar_average", False)) and 1 in settings.excite_ports)
+    runs = n_exc + int(bool(settings.engine_sar_average) and 1 in settings.excite_ports)
     cpu = runs * work * steps / CALIBRATED_CELLS_PER_S
     return CostEstimate(cells=cells, mesh_cells=mesh_cells, timestep_s=dt, pulse_timesteps=pulse, timesteps=steps,
                         memory_bytes=float(mem), cpu_seconds=float(cpu), n_excitations=max(1, n_exc))
