@@ -117,3 +117,12 @@ def test_a_circle_is_found(tmp_path):
     assert circles(graph) == [["demo.a", "demo.sub.b"]]
     (pkg / "sub" / "b.py").write_text("import os\n")
     assert circles(import_graph({"demo": pkg})) == []
+
+
+def test_production_modules_do_not_import_the_references():
+    # DEVELOPERS.md, "Where things live": workflow/reference/ holds what the validation suite compares
+    # against; the pipeline must not depend on it
+    graph = import_graph(FOLDERS)
+    ref = "bodysweep.workflow.reference"
+    users = {m: sorted(t for t in ts if t.startswith(ref)) for m, ts in graph.items() if not m.startswith(ref)}
+    assert not {m: t for m, t in users.items() if t}
