@@ -19,12 +19,12 @@ def case_estimate(case: dict) -> CostEstimate:
     from bodysweep.geometry.scene import Scene
 
     from .budget import case_disk_estimate
-    from .solver.cost import estimate
-    from .solver.mesh import auto_mesh
+    from .solver.backend import get_backend
     from .solver.settings import settings_from_dict
 
+    backend = get_backend()
     model = Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))
     settings = settings_from_dict(case.get("solver"))
-    est = estimate(auto_mesh(model, settings), model, settings)
+    est = backend.estimate(backend.mesh(model, settings), model, settings)
     disk = case_disk_estimate(case, float(est.cells))
     return replace(est, disk_bytes=float(disk["disk_B"]), scratch_bytes=float(disk["scratch_B"]))
