@@ -146,3 +146,11 @@ def test_console_script_from_another_folder(installed, tmp_path):
         rows = list(csv.DictReader(fh))
     assert len(rows) == 1 and rows[0]["status"] == "ok", rows
     assert (root / "report" / "report.md").exists()
+
+    # the analysis API of the installed package reads the same results
+    probe = ("import bodysweep\n"
+             f"t = bodysweep.load_tables({study.name!r})\n"
+             f"v = bodysweep.load_sar_volume({study.name!r}, 0, mass_g=10)\n"
+             "print(len(t['summary']), t['summary']['case_id'][0] == v.case_id, v.status)\n")
+    r = _run(venv, [str(venv / "bin" / "python"), "-c", probe], tmp_path)
+    assert r.returncode == 0 and r.stdout.split() == ["1", "True", "ok"], r.stdout + r.stderr
