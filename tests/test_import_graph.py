@@ -126,3 +126,39 @@ def test_production_modules_do_not_import_the_references():
     ref = "bodysweep.workflow.reference"
     users = {m: sorted(t for t in ts if t.startswith(ref)) for m, ts in graph.items() if not m.startswith(ref)}
     assert not {m: t for m, t in users.items() if t}
+
+
+def _guarded_project_imports(folders: dict[str, Path]) -> list[str]:
+    """``file:line`` of every ``try: <import of a project module> except ImportError`` (a sibling fallback)."""
+    out = []
+    for mod, (path, _) in modules_of(folders).items():
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"), str(path))):
+            if not isinstance(node, ast.Try):
+                continue
+            # handlers naming the import errors (a step's catch-all turning any failure into a failed
+            # status is error handling, not a fallback)
+            caught = {n.id for h in node.handlers if h.type is not None for n in ast.walk(h.type)
+                      if isinstance(n, ast.Name)}
+            if not caught & {"ImportError", "ModuleNotFoundError"}:
+                continue
+            for sub in (n for stmt in node.body for n in ast.walk(stmt)):
+                if isinstance(sub, ast.ImportFrom) and (sub.level or (sub.module or "").startswith("bodysweep")) \
+                        or isinstance(sub, ast.Import) and any(a.name.startswith("bodysweep") for a in sub.names):
+                    out.append(f"{path.relative_to(ROOT) if path.is_relative_to(ROOT) else path}:{sub.lineno}")
+    return out
+
+
+def test_no_fallback_around_an_import_of_a_sibling():
+    # a module imports its siblings directly (DEVELOPERS.md): an import failure must surface, never
+    # silently change behaviour (a fallback in the identity code once could have changed case ids)
+    found = _guarded_project_imports(FOLDERS)
+    assert not found, f"imports of project modules inside try/except ImportError: {found}"
+
+
+def test_a_fallback_is_found(tmp_path):
+    pkg = tmp_path / "pkg"
+    pkg.mkdir()
+    (pkg / "__init__.py").write_text("")
+    (pkg / "a.py").write_text("try:\n    from .b import x\nexcept ImportError:\n    x = 1\n")
+    (pkg / "b.py").write_text("try:\n    import numpy\nexcept ImportError:\n    numpy = None\n")
+    assert [f.rsplit("/", 1)[-1] for f in _guarded_project_imports({"demo": pkg})] == ["a.py:2"]
