@@ -145,9 +145,7 @@ def remember_costs(layout, rows: list[dict]) -> None:
     """Store the estimates of ``rows`` in the study folder if it exists (nothing is created for it)."""
     from . import cost_cache
 
-    known = cost_cache.load(layout.root)
-    known.update({r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
-    cost_cache.save(layout.root, known)
+    cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
 def study_cpu_budget_hours(study, given: float | None) -> float:

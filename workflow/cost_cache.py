@@ -54,12 +54,21 @@ def load(root: Path) -> dict[str, dict]:
 
 
 def save(root: Path, estimates: dict[str, CostEstimate]) -> None:
-    """Remember ``estimates`` (case_id -> estimate) in an existing study folder; nothing if it does not exist."""
-    root = Path(root)
+    """Store exactly ``estimates`` (case_id -> estimate) in an existing study folder; nothing if it does not exist."""
+    _write(Path(root), {k: v.to_dict() for k, v in estimates.items()})
+
+
+def remember(root: Path, new: dict[str, CostEstimate]) -> None:
+    """Add ``new`` to the study folder's store, keeping the entries already there that are valid for this code."""
+    stored = load(root)
+    stored.update({k: v.to_dict() for k, v in new.items()})
+    _write(Path(root), stored)
+
+
+def _write(root: Path, plain: dict[str, dict]) -> None:
     if not root.is_dir():
         return
-    clean = {k: v.to_dict() for k, v in estimates.items()}
-    write_text(root / FILE_NAME, json.dumps({"code": code_signature(), "cases": clean}, sort_keys=True))
+    write_text(root / FILE_NAME, json.dumps({"code": code_signature(), "cases": plain}, sort_keys=True))
 
 
 def _restore(est: dict) -> CostEstimate | None:

@@ -54,6 +54,15 @@ def test_code_change_invalidates_the_store(tmp_path, monkeypatch):
     assert cost_cache.load(tmp_path) == {}
 
 
+def test_new_estimates_are_added_to_the_kept_ones(tmp_path):
+    two = CostEstimate(cells=2, memory_bytes=2.0, cpu_seconds=2.0, n_excitations=2)
+    cost_cache.save(tmp_path, {"abc": ONE})
+    cost_cache.remember(tmp_path, {"def": two})
+    assert {k: CostEstimate.from_dict(v) for k, v in cost_cache.load(tmp_path).items()} == {"abc": ONE, "def": two}
+    cost_cache.remember(tmp_path / "absent", {"def": two})
+    assert not (tmp_path / "absent").exists()
+
+
 def test_unreadable_entry_is_estimated_again():
     dicts = _dicts(1)
     fresh = case_estimate(dicts[0])
