@@ -96,43 +96,6 @@ def _check_geometry(dicts: list[dict]) -> int:
 
 
 # -- cost ------------------------------------------------------------------------------------------------
-def case_cost(case: dict) -> dict:
-    """Mesh and cost estimate of one case (no solver run, no openEMS import).
-
-    Returns a dict ``cells, timestep_s, timesteps, memory_B, cpu_s`` (``cpu_s`` for all excited ports)
-    and ``disk_B, scratch_B`` (:func:`bodysweep.workflow.budget.case_disk_estimate`).
-    """
-    from .budget import case_disk_estimate
-    from .solver import mesh
-    from .solver.settings import settings_from_dict
-
-    model = _build_model(case)
-    settings = settings_from_dict(case.get("solver"))
-    plan = mesh.auto_mesh(model, settings)
-    try:
-        from .solver import cost
-    except ImportError:  # no cost model installed: the mesh still gives the cell count
-        nan = float("nan")
-        return {"cells": float(plan.n_cells), "timestep_s": nan, "timesteps": nan, "memory_B": nan, "cpu_s": nan,
-                **case_disk_estimate(case, float(plan.n_cells))}
-    est = cost.estimate(plan, model, settings)
-    get = (lambda k: est[k]) if isinstance(est, dict) else (lambda k: getattr(est, k))
-
-    def pick(*names, default=float("nan")):
-        for n in names:
-            try:
-                return float(get(n))
-            except (KeyError, AttributeError, TypeError):
-                continue
-        return default
-
-    cells = pick("cells", "n_cells")
-    return {"cells": cells, "timestep_s": pick("timestep_s", "timestep", "dt_s"),
-            "timesteps": pick("timesteps", "n_timesteps"),
-            "memory_B": pick("memory_B", "memory_bytes", "memory"),
-            "cpu_s": pick("cpu_s", "cpu_seconds", "cpu_time_s"), **case_disk_estimate(case, cells)}
-
-
 def _fmt_bytes(b: float) -> str:
     if b != b:
         return "-"
@@ -151,16 +114,18 @@ def _fmt_cpu(s: float) -> str:
 def plan_rows(layout, entries, dicts, previous) -> list[dict]:
     """One row per case: state and, for cases still to run, the mesh and cost estimate.
 
-    Estimates are remembered in the study folder (:mod:`bodysweep.workflow.cost_cache`) and computed in
-    worker processes when many are missing; call :func:`remember_costs` to store them.
+    Estimates (:func:`bodysweep.workflow.estimate.case_estimate`) are remembered in the study folder
+    (:mod:`bodysweep.workflow.cost_cache`) and computed in worker processes when many are missing; call
+    :func:`remember_costs` to store them.
     """
     from . import cost_cache
+    from .estimate import case_estimate
     from .pipeline import case_states
 
     states = case_states(layout, entries, previous)
     need = [d for d, (state, _) in zip(dicts, states) if state != "done"]
     known = cost_cache.load(layout.root)
-    found = cost_cache.estimates(need, known, case_cost)
+    found = cost_cache.estimates(need, known, case_estimate)
     rows = []
     for e, d, (state, why) in zip(entries, dicts, states):
         row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
@@ -170,7 +135,7 @@ def plan_rows(layout, entries, dicts, previous) -> list[dict]:
                 row.update({"cells": float("nan"), "timesteps": float("nan"), "memory_B": float("nan"),
                             "cpu_s": float("nan"), "disk_B": float("nan"), "scratch_B": float("nan"), "note": f"no estimate: {' '.join(str(est).split())[:120]}"})
             else:
-                row.update(est)
+                row.update(est.as_row())
                 row["_estimate"] = est
         rows.append(row)
     return rows
@@ -180,9 +145,7 @@ def remember_costs(layout, rows: list[dict]) -> None:
     """Store the estimates of ``rows`` in the study folder if it exists (nothing is created for it)."""
     from . import cost_cache
 
-    known = cost_cache.load(layout.root)
-    known.update({r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
-    cost_cache.save(layout.root, known)
+    cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
 def study_cpu_budget_hours(study, given: float | None) -> float:

@@ -23,9 +23,7 @@ import numpy as np
 import pandas as pd
 
 from .atomic import atomic_path
-from .layout import StudyLayout, read_plan
-
-TABLE_NAMES = ("summary", "sparams", "sar")
+from .layout import TABLE_NAMES, StudyLayout, read_plan
 
 #: columns every summary row has, in this order (parameter and per-limit columns are added)
 SUMMARY_FIXED = ("case_id", "label", "status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB")

@@ -16,6 +16,8 @@ from pathlib import Path
 from .atomic import json_text, write_if_changed
 
 PLAN_VERSION = 1
+#: the tables the collect step writes (:mod:`bodysweep.workflow.collect`), each as Parquet and CSV
+TABLE_NAMES = ("summary", "sparams", "sar")
 
 
 @dataclass(frozen=True)
@@ -59,8 +61,6 @@ class StudyLayout:
 
     def table_files(self) -> list[Path]:
         """The table files the collect step writes (Parquet and CSV of each table)."""
-        from .collect import TABLE_NAMES
-
         return [self.tables_dir / f"{n}.{ext}" for n in TABLE_NAMES for ext in ("parquet", "csv")]
 
 

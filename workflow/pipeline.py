@@ -23,6 +23,7 @@ import subprocess
 import sys
 import time
 from dataclasses import dataclass, field
+from importlib import resources
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
@@ -34,9 +35,11 @@ OK_STATUSES = ("ok", "warning")
 #: per-case states reported by :func:`case_states`
 STATES = ("done", "to run", "changed", "failed")
 
-REPO_ROOT = Path(__file__).resolve().parent.parent
-SNAKEFILE = REPO_ROOT / "Snakefile"
-PROFILES_DIR = Path(__file__).resolve().parent / "profiles"
+#: the installed package's own Snakefile and profiles (package data, not the checkout; a regular
+#: install unpacks them as files, so their paths can be handed to Snakemake)
+_PACKAGE_FILES = Path(str(resources.files("bodysweep.workflow")))
+SNAKEFILE = _PACKAGE_FILES / "Snakefile"
+PROFILES_DIR = _PACKAGE_FILES / "profiles"
 
 
 # -- the study --------------------------------------------------------------------------------------------

@@ -2,8 +2,7 @@
 
 ``workflow/schema/study.schema.json`` references ``scene.schema.json`` (shipped by
 :mod:`bodysweep.geometry` in ``geometry/data/``) and ``solver.schema.json`` (``workflow/schema/``).
-Missing referenced schemas are replaced by ``{"type": "object"}`` so that the study layer works while
-the other sections are still being written.
+All three are package data; a missing one is an installation error, never replaced by a looser schema.
 """
 from __future__ import annotations
 
@@ -22,34 +21,29 @@ from .errors import StudyError, join_path, value2text
 STUDY_SCHEMA_URI = "bodysweep/study.schema.json"
 SCENE_SCHEMA_URI = "bodysweep/scene.schema.json"
 SOLVER_SCHEMA_URI = "bodysweep/solver.schema.json"
-_ANY_OBJECT = {"$schema": "https://json-schema.org/draft/2020-12/schema", "type": "object"}
 
 
-def _read_json(package: str, *parts: str) -> dict | None:
-    try:
-        node = resources.files(package)
-        for p in parts:
-            node = node / p
-        if not node.is_file():
-            return None
-        return json.loads(node.read_text(encoding="utf-8"))
-    except (ModuleNotFoundError, FileNotFoundError):
-        return None
+def _read_json(package: str, *parts: str) -> dict:
+    """A JSON file shipped as package data (``RuntimeError`` naming it when the installation lacks it)."""
+    node = resources.files(package)
+    for p in parts:
+        node = node / p
+    if not node.is_file():
+        raise RuntimeError(f"{package}/{'/'.join(parts)} is missing from the installation of bodysweep; "
+                           "reinstall the package")
+    return json.loads(node.read_text(encoding="utf-8"))
 
 
 def study_schema() -> dict:
     """The study schema as a dict (a fresh copy)."""
-    schema = _read_json("bodysweep.workflow", "schema", "study.schema.json")
-    if schema is None:  # pragma: no cover - shipped with the package
-        raise RuntimeError("workflow/schema/study.schema.json is missing from the installation")
-    return schema
+    return _read_json("bodysweep.workflow", "schema", "study.schema.json")
 
 
 def _resources() -> list[tuple[str, referencing.Resource]]:
     out = []
     for uri, package, parts in ((SCENE_SCHEMA_URI, "bodysweep.geometry", ("data", "scene.schema.json")),
                                 (SOLVER_SCHEMA_URI, "bodysweep.workflow", ("schema", "solver.schema.json"))):
-        contents = _read_json(package, *parts) or dict(_ANY_OBJECT)
+        contents = _read_json(package, *parts)
         res = referencing.Resource.from_contents(contents, default_specification=DRAFT202012)
         out.append((uri, res))
         own = res.id()
@@ -174,7 +168,7 @@ def solver_key_defaults() -> dict[str, Any]:
 
     A sweep may change such a key even when the study file leaves it out (it then has its preset value).
     """
-    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json") or {}
+    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json")
     return {k: v.get("default") for k, v in schema.get("properties", {}).items() if isinstance(v, dict)}
 
 
@@ -219,7 +213,7 @@ class CaseSceneChecker:
         from .identity import canonical_json
 
         self._text = canonical_json
-        contents = _read_json("bodysweep.geometry", "data", "scene.schema.json") or _ANY_OBJECT
+        contents = _read_json("bodysweep.geometry", "data", "scene.schema.json")
         self._sectionwise = set(contents) <= _SECTIONWISE_KEYWORDS
         self._properties = set(contents.get("properties", {}))
         self._shapes: set[tuple] = set()
