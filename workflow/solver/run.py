@@ -44,6 +44,7 @@ from types import SimpleNamespace
 import numpy as np
 
 from .child import CHILD_ERROR as _CHILD_ERROR
+from .cost import excitation_pulse
 from .child import DIVERGED_RC as _DIVERGED_RC
 from .child import child_reason as _child_reason
 from .child import start_child as _start_child
@@ -73,17 +74,6 @@ def _atomic(path: Path):
     from bodysweep.workflow.atomic import atomic_path
 
     return atomic_path(path)
-
-
-def excitation_pulse(frequency_Hz: float, band_fraction: float) -> tuple[float, float]:
-    """Centre and -20 dB half-bandwidth ``(f0, fc)`` of the Gaussian pulse for a case.
-
-    The pulse is centred on the case frequency and covers at least the S-parameter band
-    ``f (1 +- band_fraction / 2)``: ``fc = f clip(band_fraction, 0.5, 0.9)``. Half a band of at least
-    ``0.5 f`` keeps the pulse short (few timesteps); ``fc < f`` keeps DC out of the spectrum.
-    """
-    fc = float(frequency_Hz) * float(np.clip(band_fraction, 0.5, 0.9))
-    return float(frequency_Hz), fc
 
 
 def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
