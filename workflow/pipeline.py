@@ -97,6 +97,19 @@ def previous_plan(layout: StudyLayout) -> dict[str, str]:
     return {parameter_key(e.get("parameters", {})): e["case_id"] for e in cases}
 
 
+def study_settings(study) -> dict:
+    """What the tables and the report need from the study file beyond its cases (never part of a case id)."""
+    from .study.schema import study_schema
+
+    sar = study.raw["sar"]
+    default_limits = study_schema()["properties"]["sar"]["properties"]["limits"]["default"]
+    return {"description": study.description, "figure_of_merit": study.raw.get("figure_of_merit", "implant_power"),
+            "baseline": study.raw.get("baseline"), "excite": list(study.excite_ports),
+            "limits": [dict(lim) for lim in sar["limits"]], "limits_are_defaults": sar["limits"] == default_limits,
+            "solver_preset": (study.raw.get("solver") or {}).get("preset", "standard"),
+            "parameter_paths": {n: p.path for n, p in study.parameters.items()}}
+
+
 def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prepared:
     """Write every case folder's ``case.json`` and the study's ``plan.json``, each only if changed."""
     study, layout, entries, dicts = expand_study(study_path, results_dir)
@@ -109,7 +122,7 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
     written = 0
     for d in dicts:
         written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
-    write_plan(layout, study.name, entries)
+    write_plan(layout, study.name, entries, study_settings(study))
     return Prepared(study, layout, entries, previous, written)
 
 

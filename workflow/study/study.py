@@ -295,6 +295,29 @@ def _sar_checks(raw: dict) -> None:
                              lim["mass_g"], ", ".join(f"{m:g}" for m in masses))
 
 
+def _baseline_checks(raw: dict, blocks: tuple[Block, ...]) -> None:
+    """A baseline mapping names swept parameters and values they take (a case id is checked by the report)."""
+    import difflib
+
+    base = raw.get("baseline")
+    if not isinstance(base, dict):
+        return
+    values: dict[str, list] = {}
+    for b in blocks:
+        for i, n in enumerate(b.names):
+            values.setdefault(n, []).extend(r[i] for r in b.rows)
+    for name, v in base.items():
+        if name not in values:
+            near = difflib.get_close_matches(name, list(values), n=1)
+            raise StudyError(f"baseline.{name}", "not a swept parameter" + (f" (did you mean {near[0]}?)" if near else ""),
+                             name, ", ".join(values) or "no parameter is swept")
+        taken = values[name]
+        if not any(str(v) == str(t) or (isinstance(t, (int, float)) and isinstance(v, (int, float)) and
+                                        float(t) == float(v)) for t in taken):
+            raise StudyError(f"baseline.{name}", "a value this parameter never takes", v,
+                             ", ".join(dict.fromkeys(str(t) for t in taken)))
+
+
 def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None = None) -> Study:
     """Parse (safely), validate and resolve a study.
 
@@ -344,5 +367,6 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
     params = _parameters(raw, base)
     blocks = _blocks(raw, params, base, len(freqs), limit)
     derived = _derived(raw, params, base, {n for b in blocks for n in b.names})
+    _baseline_checks(raw, blocks)
     return Study(name=name, frequencies_Hz=freqs, raw=raw, parameters=params, blocks=blocks, derived=derived,
                  excite_ports=excite, max_cases=limit, source=origin)
