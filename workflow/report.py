@@ -46,6 +46,9 @@ ESTIMATE_NOTE = (
     "regulations and licensed professional practice, with measurements where those require them. The band's own "
     "emission limits (transmitter power, bandwidth, duty cycle) are not checked here.")
 
+#: |X|/R of a port above which the report cautions about the lossless-matching assumption (own choice)
+HIGH_Q = 20.0
+
 #: cells per wavelength of the standard preset (below it a mesh is called coarse)
 STANDARD_CELLS_PER_WAVELENGTH = 20.0
 
@@ -198,6 +201,12 @@ def _best_section(best, settings: dict, summary: pd.DataFrame) -> list[str]:
         if np.isfinite(_num(best.get("Zin2_re_ohm"))):
             items.append(f"input impedance at port 2 {_zin(best, 2)} ohm, Rollett K {_fmt(best.get('rollett_K'))}")
     lines += [f"- {t}" for t in items] + [""]
+    qs = [abs(_num(best.get(f"Zin{p}_im_ohm"))) / _num(best.get(f"Zin{p}_re_ohm")) for p in (1, 2)
+          if _num(best.get(f"Zin{p}_re_ohm")) > 0]
+    if qs and max(qs) > HIGH_Q:
+        lines += [f"The matched figures assume lossless matching networks; here a port has |X|/R = {max(qs):.0f}. "
+                  "Matching such a port takes a narrowband network whose component losses (and the tolerance of "
+                  "its values) take away much of the gain over the unmatched figure.", ""]
     reason = str(best.get("port2_reason") or "")
     if reason and np.isfinite(_num(best.get("S21_dB"))):
         lines += [f"Both-ends matching, Z at port 2 and K are missing: {reason}. Exciting port 2 solves each case "

@@ -258,6 +258,10 @@ def plot_sar_sections(cases: list[tuple[Path, str]], path: Path) -> Path:
                   (y, z, db[i, :, :], "y", "z", f"x = {x[i] * 1e3:.1f} mm", (y[j], z[k])),
                   (x, y, db[:, :, k], "x", "y", f"z = {z[k] * 1e3:.1f} mm (horizontal plane)", (x[i], y[j])))
         im = None
+        hot = np.nonzero(sar > top * 1e-4)  # crop to where there is SAR (tissue), with a margin
+        box = [(c[idx.min()] - 0.005, c[idx.max()] + 0.005) if idx.size else (c[0], c[-1])
+               for c, idx in zip((x, y, z), hot)]
+        lim = {"x": box[0], "y": box[1], "z": (box[2][0], max(box[2][1], 0.005))}
         for ax, (h, v, sl, hn, vn, fixed, pk) in zip(row, planes):
             im = ax.pcolormesh(h * 1e3, v * 1e3, sl.T, shading="nearest", cmap="magma", vmin=-40, vmax=0)
             ax.plot([pk[0] * 1e3], [pk[1] * 1e3], "c+", ms=12, mew=2)
@@ -266,6 +270,8 @@ def plot_sar_sections(cases: list[tuple[Path, str]], path: Path) -> Path:
             ax.set_xlabel(f"{hn} (mm)")
             ax.set_ylabel(f"{vn} (mm)" + (", body surface at 0" if vn == "z" else ""))
             ax.set_title(fixed, fontsize=9)
+            ax.set_xlim(lim[hn][0] * 1e3, lim[hn][1] * 1e3)
+            ax.set_ylim(lim[vn][0] * 1e3, lim[vn][1] * 1e3)
             ax.set_aspect("equal")
         sf.colorbar(im, ax=row, label="local SAR rel. to the largest peak shown (dB)", shrink=0.85)
         sf.suptitle(f"{title}: peak local SAR {peak:.3g} W/kg per W accepted at port 1, at "
@@ -297,8 +303,7 @@ def plot_impedance(cases: list[tuple[Path, str]], path: Path) -> Path | None:
         ax.set_ylabel(t)
         ax.grid(True, alpha=0.3)
     axes[1].axhline(0.0, color="0.5", lw=0.8)
-    axes[0].set_yscale("symlog", linthresh=1.0)
-    axes[1].set_yscale("symlog", linthresh=1.0)
+    axes[1].set_yscale("symlog", linthresh=1.0)  # reactances of small antennas span decades of either sign
     fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=2, fontsize=7, frameon=False)
     fig.suptitle("Input impedance of the excited ports (other port on the reference impedance)", fontsize=10)
     return _save(fig, path)
