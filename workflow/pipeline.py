@@ -29,6 +29,7 @@ from typing import Any, Callable, Iterable
 
 from .atomic import json_text, write_if_changed, write_json
 from .layout import StudyLayout, read_plan, write_plan
+from .progress import running_progress
 
 #: statuses a finished case can carry in metrics.json that count as a result (not a failure)
 OK_STATUSES = ("ok", "warning")
@@ -343,8 +344,12 @@ def format_duration(s: float) -> str:
 
 def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], log_path: Path,
                   workdir: str | Path = ".", poll_s: float = 3.0,
-                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = ()) -> int:
+                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = (),
+                  detail_s: float = 30.0) -> int:
     """Run Snakemake in a subprocess, its output to ``log_path``; print progress (cases done/total, ETA).
+
+    Every ``detail_s`` seconds it also prints, and appends to ``logs/progress.log``, each running
+    excitation's timesteps, energy decay and time left (:func:`bodysweep.workflow.progress.running_progress`).
 
     ``pass_fds``: file descriptors Snakemake inherits (the study's run lock). Returns Snakemake's exit code.
     """
@@ -353,6 +358,7 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
     total, start = len(todo), time.monotonic()
     echo(f"running {total} of {len(entries)} cases (log: {log_path})")
     last = None
+    last_detail = time.monotonic()
     with open(log_path, "ab") as log:
         proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
                                 pass_fds=tuple(pass_fds))
@@ -364,6 +370,15 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
                 eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
                 echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
                 last = done
+            if rc is None and time.monotonic() - last_detail >= detail_s:  # within-case progress
+                last_detail = time.monotonic()
+                detail = running_progress(layout, todo)
+                for line in detail:
+                    echo(line)
+                if detail:
+                    with open(log_path.parent / "progress.log", "a") as plog:
+                        stamp = time.strftime("%Y-%m-%dT%H:%M:%S")
+                        plog.write("".join(f"{stamp} {ln.strip()}\n" for ln in detail))
             if rc is not None:
                 return rc
             time.sleep(poll_s)
