@@ -89,6 +89,14 @@ def is_categorical(col: pd.Series, name: str) -> bool:
     return name == "frequency_MHz" or pd.to_numeric(col, errors="coerce").isna().any()
 
 
+def _cat(v) -> str:
+    """Category text: numbers without a trailing ``.0`` (433.0 -> 433), names as they are."""
+    try:
+        return f"{float(v):g}"
+    except (TypeError, ValueError):
+        return str(v)
+
+
 def _labels(ok: pd.DataFrame) -> pd.Series:
     lab = ok["label"].astype(str)
     return lab.where(lab != "", ok["case_id"].astype(str))
@@ -150,7 +158,7 @@ def plot_vs_parameter(summary: pd.DataFrame, param: str, others: list[str], path
     categorical = is_categorical(summary[param], param)
     cats = None
     if categorical:
-        seen = list(dict.fromkeys(summary[param].astype(str)))
+        seen = list(dict.fromkeys(summary[param].map(_cat)))
         cats = [str(c) for c in order if str(c) in seen] + [c for c in seen if c not in map(str, order)] if order else seen
     plt = _plt()
     shown = min(len(groups), MAX_SERIES)
@@ -164,7 +172,7 @@ def plot_vs_parameter(summary: pd.DataFrame, param: str, others: list[str], path
         for ax, col in zip(axes[0], cols):
             yv = pd.to_numeric(g[col], errors="coerce").to_numpy(float)
             if categorical:
-                x = g[param].astype(str).map({c: i for i, c in enumerate(cats)}).to_numpy(float)
+                x = g[param].map(_cat).map({c: i for i, c in enumerate(cats)}).to_numpy(float)
                 dx = (k - (shown - 1) / 2) * (width / max(shown, 1)) if shown > 1 else 0.0
                 ax.plot(x + dx, yv, marker="o", ls="none", color=f"C{k % 10}", label=label)
             else:
