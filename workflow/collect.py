@@ -36,6 +36,8 @@ IMPLANT_VARIANTS = ("unmatched", "tx_matched", "both_matched")
 LINK_COLUMNS = (("sar_limited_accepted_W", "sar_limited_accepted_dBm", "deciding_limit")
                 + tuple(f"implant_power_{v}_{u}" for v in IMPLANT_VARIANTS for u in ("W", "dBm"))
                 + ("figure_of_merit", "figure_of_merit_value"))
+#: between the warnings of one case in the ``warnings`` column
+WARNING_SEPARATOR = " | "
 SUMMARY_TAIL = ("warnings", "runtime_s", "cells", "timesteps", "decay_reached")
 SPARAMS_FIXED = ("case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg")
 SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "x_mm", "y_mm", "z_mm")
@@ -299,7 +301,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         for v in IMPLANT_VARIANTS:
             pv = _num(powers.get(v))
             row[f"implant_power_{v}_W"], row[f"implant_power_{v}_dBm"] = pv, watt2dbm(pv)
-        row["warnings"] = "; ".join(str(w) for w in (m.get("warnings") or []))
+        row["warnings"] = WARNING_SEPARATOR.join(str(w) for w in (m.get("warnings") or []))
         row["runtime_s"] = _num(m.get("runtime_s"))
         row["cells"] = _num(m.get("cells"))
         row["timesteps"] = _num(m.get("timesteps"))

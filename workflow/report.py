@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .atomic import atomic_path, write_text
+from .collect import WARNING_SEPARATOR
 from .layout import StudyLayout, read_plan
 from .report_plots import (FINISHED, MAX_BARS, MAX_IMPEDANCE_CASES, finished, plot_cases_overview,  # noqa: F401
                            plot_impedance, plot_peak_sar, plot_sar_sections, plot_vs_parameter, rank_column,
@@ -236,7 +237,7 @@ def _cases_table(summary: pd.DataFrame, layout: StudyLayout) -> list[str]:
 def _warnings_section(summary: pd.DataFrame) -> list[str]:
     out = []
     for _, r in finished(summary).iterrows():
-        w = [x for x in str(r.get("warnings") or "").split("; ") if x]
+        w = [x for x in str(r.get("warnings") or "").split(WARNING_SEPARATOR) if x]
         if r.get("decay_reached") is False:
             w.append("the field energy did not decay to the end criterion: S-parameters and SAR may be inaccurate")
         out += [f"- `{r['case_id']}` ({r['label']}): {x}" for x in w]
@@ -325,16 +326,28 @@ def write_report(layout: StudyLayout) -> Path:
                 lines.append(f"| `{r['case_id']}` ({r['label']}) | `{r['baseline_case_id']}` | "
                              + " | ".join(_fmt(r[c], "+.2f") for c in dcols) + " |")
             lines.append("")
-            if best is not None and (delta["case_id"] == best["case_id"]).any():
-                base_pair = str(delta.loc[delta["case_id"] == best["case_id"], "baseline_case_id"].iloc[0])
+            # the best-ranked case that has a baseline, beside its baseline (the best case may be a baseline)
+            col = rank_column(ok)
+            rankv = dict(zip(ok["case_id"], pd.to_numeric(ok[col], errors="coerce"))) if col else {}
+            top = max(delta["case_id"], key=lambda c: (rankv.get(c, -math.inf) == rankv.get(c, -math.inf),
+                                                       rankv.get(c, -math.inf)))
+            base_pair = (str(top), str(delta.loc[delta["case_id"] == top, "baseline_case_id"].iloc[0]))
     if best is not None:
-        rows = [(layout.case_dir(str(best["case_id"])) / "result.h5", f"case {best['case_id']} ({best['label']})")]
+        def lab(cid):
+            return summary.loc[summary["case_id"] == cid, "label"].iloc[0]
+
+        shown = [(str(best["case_id"]), "best case")]
         if base_pair:
-            lab = summary.loc[summary["case_id"] == base_pair, "label"].iloc[0]
-            rows.append((layout.case_dir(base_pair) / "result.h5", f"baseline {base_pair} ({lab})"))
+            shown = [(base_pair[0], "case"), (base_pair[1], "its baseline")]
+            if str(best["case_id"]) not in base_pair:
+                shown.insert(0, (str(best["case_id"]), "best case"))
+        rows = [(layout.case_dir(c) / "result.h5", f"{what_} {c} ({lab(c)})") for c, what_ in shown]
+        caption = f"SAR through the peak of the best case `{best['case_id']}`"
+        if base_pair:
+            caption = (f"SAR through the peak: `{base_pair[0]}` beside its baseline `{base_pair[1]}`"
+                       + (f", after the best case `{best['case_id']}`" if len(shown) == 3 else ""))
         try:
-            figures.append(("SAR through the peak" + (", best case and its baseline" if base_pair else ", best case"),
-                            plot_sar_sections(rows, rdir / f"sar_section_{best['case_id']}.png")))
+            figures.append((caption, plot_sar_sections(rows, rdir / f"sar_section_{best['case_id']}.png")))
         except (OSError, KeyError, ValueError) as exc:
             lines += [f"(no SAR cross-section: {exc})", ""]
     lines += _warnings_section(summary)

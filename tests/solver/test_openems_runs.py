@@ -284,3 +284,16 @@ def test_only_port1_excited_gives_a_one_port_touchstone(two_port_case, tmp_path)
     lim = m["limits"][0]
     assert lim["implant_power_W"]["both_matched"] is None and lim["implant_power_W"]["tx_matched"] > 0
     assert "port 2" in lim["implant_power_reason"]["both_matched"]
+
+
+def test_strongly_coupled_case_is_flagged_not_silently_ok(two_port_case, monkeypatch):
+    from bodysweep.workflow.post import portfigures
+
+    case, _ = two_port_case
+    m = finish_case(case)
+    assert m["status"] == ("warning" if m["max_available_gain"] > portfigures.STRONG_COUPLING else "ok")
+    monkeypatch.setattr(portfigures, "STRONG_COUPLING", 0.0)  # every coupled link is now "strong"
+    m = finish_case(case)
+    assert m["status"] == "warning" and any("strong coupling" in w for w in m["warnings"])
+    monkeypatch.undo()
+    finish_case(case)  # leave the fixture's files as the other tests expect them

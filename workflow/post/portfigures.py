@@ -23,9 +23,10 @@ reaches the implant depends on the matching networks (lossless) a designer puts 
 
 Own derivation (stated): the SAR per watt accepted is computed with the implant port terminated in
 ``Z0``. A different implant load changes the implant antenna's current and hence its re-radiated field;
-this changes the SAR pattern by a fraction of order ``|S21|^2 / (1 - |S11|^2)`` of the accepted power (the
-power the implant takes out of the field), negligible for a weakly coupled link. Above
-:data:`STRONG_COUPLING` the figures are flagged.
+this changes the SAR pattern by a fraction of order MAG of the accepted power (the power the matched implant
+takes out of the field), negligible for a weakly coupled link. ``unmatched`` and ``tx_matched`` keep the
+implant port on ``Z0`` as in the solve and need no such assumption; when MAG exceeds
+:data:`STRONG_COUPLING` the case is flagged.
 """
 from __future__ import annotations
 
