@@ -276,6 +276,8 @@ def write_report(layout: StudyLayout) -> Path:
     lines += [f"> **Safety note.** {SAFETY_NOTE}", "",
               f"{len(summary)} cases: {len(ok)} finished, {len(failed)} failed or missing. "
               f"Tables: `../tables/summary.parquet`, `sparams.parquet`, `sar.parquet` (and `.csv`).", "",
+              f"Mesh: solver preset `{settings.get('solver_preset', 'standard')}` with the study's overrides; cells "
+              "per wavelength, cells and solver runtime of each case are in the Cases table.", "",
               "## How to read this", "", HOW_TO_READ, "", "## Cautions", "", ESTIMATE_NOTE, ""]
     coarse = _coarse(summary, settings, layout)
     if coarse:
