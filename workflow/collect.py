@@ -139,6 +139,30 @@ def touchstone2arrays(path: str | Path) -> tuple[np.ndarray, np.ndarray]:
     return f_Hz, S
 
 
+LEGACY_NOTE = ("metrics.json written before port figures existed: input impedances, mismatch losses and K are "
+               "empty; remove the case's metrics.json and run the study again (only the finish step reruns)")
+
+
+def _legacy_metrics(m: dict, S: dict):
+    """For a finished case's ``metrics.json`` of the earlier format (``max_input_power_W``, ``delivered_power_W``,
+    ``matched_link_efficiency``): a function mapping each limit row to the current keys, else None.
+
+    The earlier figures are the same quantities: ``delivered_power_W`` was P_lim |S21|^2 / (1 - |S11|^2) (port 1
+    matched), ``matched_link_efficiency`` the maximum available gain; the unmatched figure is P_lim |S21|^2.
+    """
+    if m.get("status") not in ("ok", "warning") or "ports" in m or "matched_link_efficiency" not in m:
+        return None
+    mag = _num(m.get("matched_link_efficiency"))
+
+    def convert(lim: dict) -> dict:
+        p = _num(lim.get("max_input_power_W"))
+        s21 = abs(S["S21"])
+        return {**lim, "sar_limited_accepted_W": p, "implant_power_W": {
+            "unmatched": p * s21 ** 2 if s21 == s21 else None, "tx_matched": lim.get("delivered_power_W"),
+            "both_matched": p * mag if mag == mag else None}}
+    return convert
+
+
 def _band_from_result(path: Path) -> tuple[np.ndarray, np.ndarray]:
     """The band S-matrix kept in a case's ``result.h5`` (``sparams/f_Hz``, ``sparams/S``; NaN = not computed)."""
     import h5py
@@ -285,8 +309,11 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         row["max_available_gain_dB"] = ratio2db(m.get("max_available_gain"))
         row["port2_reason"] = str(ports.get("port2_reason") or "")
         allowed = []
+        legacy = _legacy_metrics(m, S)
         for lim in m.get("limits", []) or []:
             tag = limit_tag(lim)
+            if legacy:
+                lim = legacy(lim)
             p_in = _num(lim.get("sar_limited_accepted_W"))
             row[f"sar_limited_accepted_W_{tag}"] = p_in
             row[f"sar_limited_accepted_dBm_{tag}"] = watt2dbm(p_in)
@@ -301,7 +328,8 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         for v in IMPLANT_VARIANTS:
             pv = _num(powers.get(v))
             row[f"implant_power_{v}_W"], row[f"implant_power_{v}_dBm"] = pv, watt2dbm(pv)
-        row["warnings"] = WARNING_SEPARATOR.join(str(w) for w in (m.get("warnings") or []))
+        row["warnings"] = WARNING_SEPARATOR.join(str(w) for w in (m.get("warnings") or []) + (
+            [LEGACY_NOTE] if legacy else []))
         row["runtime_s"] = _num(m.get("runtime_s"))
         row["cells"] = _num(m.get("cells"))
         row["timesteps"] = _num(m.get("timesteps"))

@@ -172,3 +172,22 @@ def test_figure_of_merit_falls_back_to_port1_matched_without_port2(tmp_path):
     assert math.isnan(row["implant_power_both_matched_dBm"])
     row = collect_frames(layout, merit="S21")["summary"].iloc[0]
     assert row["figure_of_merit"] == "S21_dB" and row["figure_of_merit_value"] == pytest.approx(-40.0)
+
+
+def test_metrics_of_the_earlier_format_still_collect(tmp_path):
+    # a finished case whose metrics.json predates the port figures: same quantities under the old keys
+    m = _ok_metrics(403e6, 0.01 + 0j)
+    for lim in m["limits"]:
+        p = lim.pop("sar_limited_accepted_W")
+        lim.pop("implant_power_W")
+        lim.update(max_input_power_W=p, delivered_power_W=p * 1e-3)
+    m.pop("ports"), m.pop("max_available_gain"), m.pop("warnings")
+    m["matched_link_efficiency"] = 2e-3
+    layout = _study(tmp_path, [("aaa", {"frequency_MHz": 403.0}, m)])
+    row = collect_frames(layout)["summary"].iloc[0]
+    p = 1.6 / 12.5
+    assert row["sar_limited_accepted_W"] == pytest.approx(p)
+    assert row["implant_power_tx_matched_W"] == pytest.approx(p * 1e-3)
+    assert row["implant_power_both_matched_W"] == pytest.approx(p * 2e-3)
+    assert row["implant_power_unmatched_W"] == pytest.approx(p * 1e-4)  # |S21|^2 = 1e-4 (arithmetic)
+    assert "metrics.json written before port figures" in row["warnings"] and math.isnan(row["Zin1_re_ohm"])
