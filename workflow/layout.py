@@ -72,7 +72,13 @@ def read_plan(layout: StudyLayout) -> dict:
         raise FileNotFoundError(f"{layout.plan_file} does not exist; run `bodysweep run` (or prepare) first") from None
 
 
-def write_plan(layout: StudyLayout, study_name: str, entries: list[dict]) -> bool:
-    """Write ``plan.json`` if its content changed; True if written."""
-    return write_if_changed(layout.plan_file, json_text({"study": study_name, "plan_version": PLAN_VERSION,
-                                                         "cases": entries}))
+def write_plan(layout: StudyLayout, study_name: str, entries: list[dict], settings: dict | None = None) -> bool:
+    """Write ``plan.json`` if its content changed; True if written.
+
+    ``settings`` holds the study's keys that shape tables and report but not results (description,
+    figure of merit, baseline, the exposure limits applied); they are kept under ``"settings"``.
+    """
+    content = {"study": study_name, "plan_version": PLAN_VERSION, "cases": entries}
+    if settings:
+        content["settings"] = settings
+    return write_if_changed(layout.plan_file, json_text(content))

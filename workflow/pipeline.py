@@ -29,6 +29,7 @@ from typing import Any, Callable, Iterable
 
 from .atomic import json_text, write_if_changed, write_json
 from .layout import StudyLayout, read_plan, write_plan
+from .progress import running_progress
 
 #: statuses a finished case can carry in metrics.json that count as a result (not a failure)
 OK_STATUSES = ("ok", "warning")
@@ -97,6 +98,19 @@ def previous_plan(layout: StudyLayout) -> dict[str, str]:
     return {parameter_key(e.get("parameters", {})): e["case_id"] for e in cases}
 
 
+def study_settings(study) -> dict:
+    """What the tables and the report need from the study file beyond its cases (never part of a case id)."""
+    from .study.schema import study_schema
+
+    sar = study.raw["sar"]
+    default_limits = study_schema()["properties"]["sar"]["properties"]["limits"]["default"]
+    return {"description": study.description, "figure_of_merit": study.raw.get("figure_of_merit", "implant_power"),
+            "baseline": study.raw.get("baseline"), "excite": list(study.excite_ports),
+            "limits": [dict(lim) for lim in sar["limits"]], "limits_are_defaults": sar["limits"] == default_limits,
+            "solver_preset": (study.raw.get("solver") or {}).get("preset", "standard"),
+            "parameter_paths": {n: p.path for n, p in study.parameters.items()}}
+
+
 def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prepared:
     """Write every case folder's ``case.json`` and the study's ``plan.json``, each only if changed."""
     study, layout, entries, dicts = expand_study(study_path, results_dir)
@@ -109,7 +123,7 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
     written = 0
     for d in dicts:
         written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
-    write_plan(layout, study.name, entries)
+    write_plan(layout, study.name, entries, study_settings(study))
     return Prepared(study, layout, entries, previous, written)
 
 
@@ -330,8 +344,12 @@ def format_duration(s: float) -> str:
 
 def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], log_path: Path,
                   workdir: str | Path = ".", poll_s: float = 3.0,
-                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = ()) -> int:
+                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = (),
+                  detail_s: float = 30.0) -> int:
     """Run Snakemake in a subprocess, its output to ``log_path``; print progress (cases done/total, ETA).
+
+    Every ``detail_s`` seconds it also prints, and appends to ``logs/progress.log``, each running
+    excitation's timesteps, energy decay and time left (:func:`bodysweep.workflow.progress.running_progress`).
 
     ``pass_fds``: file descriptors Snakemake inherits (the study's run lock). Returns Snakemake's exit code.
     """
@@ -340,6 +358,7 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
     total, start = len(todo), time.monotonic()
     echo(f"running {total} of {len(entries)} cases (log: {log_path})")
     last = None
+    last_detail = time.monotonic()
     with open(log_path, "ab") as log:
         proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
                                 pass_fds=tuple(pass_fds))
@@ -351,6 +370,15 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
                 eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
                 echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
                 last = done
+            if rc is None and time.monotonic() - last_detail >= detail_s:  # within-case progress
+                last_detail = time.monotonic()
+                detail = running_progress(layout, todo)
+                for line in detail:
+                    echo(line)
+                if detail:
+                    with open(log_path.parent / "progress.log", "a") as plog:
+                        stamp = time.strftime("%Y-%m-%dT%H:%M:%S")
+                        plog.write("".join(f"{stamp} {ln.strip()}\n" for ln in detail))
             if rc is not None:
                 return rc
             time.sleep(poll_s)

@@ -46,9 +46,11 @@ def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
             for name in ON_SUCCESS:
-                if name == "sparams.s2p" and (d / "sparams.s1p").exists():  # one-port scene (no implant)
-                    continue
+                if name == "sparams.s2p" and (d / "sparams.s1p").exists() and 2 not in entry.get("ports", [1]):
+                    continue  # one-port file: a scene without implant, or only port 1 excited
                 if not (d / name).exists():
+                    if name == "sparams.s2p" and 2 not in entry.get("ports", [1]):
+                        name = "sparams.s1p"
                     out.append(f"{cid}: status {m.get('status')} but {name} missing")
             for p in entry.get("ports", [1]):
                 if not (d / f"excite_{p}" / "status.json").exists():

@@ -66,7 +66,7 @@ def test_sigkill_mid_solve_then_rerun(tmp_path):
 
     # nothing half-written under a final name: every file opens with its format's own reader
     counts = open_every_file(root)
-    assert counts[".json"] >= 4 and counts[".h5"] >= 3 and counts[".s2p"] == 1, counts
+    assert counts[".json"] >= 4 and counts[".h5"] >= 3 and counts[".s1p"] == 1, counts
     assert not (killed_dir / "excite_1" / "status.json").exists()
     assert not (killed_dir / "metrics.json").exists()
     assert fingerprint(done_dir) == before  # the killed run did not touch the finished case

@@ -53,7 +53,7 @@ def _edit_json(path: Path, edit) -> None:
     path.write_text(json.dumps(d, indent=1))
 
 
-@pytest.mark.parametrize("name", ["result.h5", "sparams.s2p", "metrics.json", "scene.json", "excite_1/status.json"])
+@pytest.mark.parametrize("name", ["result.h5", "sparams.s1p", "metrics.json", "scene.json", "excite_1/status.json"])
 def test_deleted_case_file(copy, name):
     verify, root, case = copy
     (case / name).unlink()
@@ -82,7 +82,7 @@ def test_edited_metrics_value_is_caught_even_after_collect(copy):
 
     _edit_json(case / "metrics.json", edit)
     rc, out = verify()
-    assert rc == 3 and "metrics.json S11" in out and "sparams.s2p" in out, out
+    assert rc == 3 and "metrics.json S11" in out and "sparams.s1p" in out, out
     assert "summary.S11_dB differs" in out  # the stored table no longer matches the case files
     from bodysweep.workflow.collect import collect_study
     from bodysweep.workflow.layout import StudyLayout
@@ -90,7 +90,7 @@ def test_edited_metrics_value_is_caught_even_after_collect(copy):
     collect_study(StudyLayout(root))
     rc, out = verify()
     assert rc == 3 and "metrics.json S11" in out and "summary" not in out, out
-    net = skrf.Network(str(case / "sparams.s2p"))
+    net = skrf.Network(str(case / "sparams.s1p"))  # only port 1 excited: one-port file
     m = json.loads((case / "metrics.json").read_text())
     k = int(np.argmin(abs(net.f - m["frequency_Hz"])))
     assert abs(net.s[k, 0, 0].real * 0.9 - m["S11"][0]) < 1e-12  # the reference really holds the old value

@@ -12,7 +12,7 @@ from typing import Any, Callable
 from bodysweep.geometry.units import from_edge_units
 
 from .edge_checks import check_edge_values
-from .errors import StudyError, join_path
+from .errors import StudyError, join_path, si2edge_text
 from .expressions import evaluate
 from .identity import CASE_ID_LENGTH, _normalise, canonical_json, code_versions
 from .paths import has_path, parent_exists, path2parts, set_path
@@ -320,8 +320,8 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
                     else:
                         scene_si = plain_copy(resolved[key])
                 except (ValueError, TypeError, KeyError) as exc:
-                    raise StudyError("scene", f"in case {label}: {exc}", None, "a scene the builders accept",
-                                     show_value=False) from None
+                    raise StudyError("scene", f"in case {label}: {si2edge_text(str(exc))}", None,
+                                     "a scene the builders accept", show_value=False) from None
             if solver_resolve is not None:
                 try:
                     text = repr(solver_si)

@@ -106,6 +106,27 @@ def sch_props(err: ValidationError) -> list[str]:
     return list(err.schema.get("properties", {})) if isinstance(err.schema, dict) else []
 
 
+def did_you_mean(name: str, choices) -> str:
+    """`` (did you mean X?)`` for the nearest of ``choices`` (difflib), else ``""``."""
+    import difflib
+
+    near = difflib.get_close_matches(str(name), [str(c) for c in choices], n=1, cutoff=0.6)
+    return f" (did you mean {near[0]}?)" if near else ""
+
+
+def _looks_like_hz(err: ValidationError) -> str:
+    """``"403000000 Hz = 403 MHz"`` when the value divided by 1e6 falls in the allowed range, else ``""``."""
+    sch = err.schema if isinstance(err.schema, dict) else {}
+    x = err.instance
+    if isinstance(x, bool) or not isinstance(x, (int, float)):
+        return ""
+    lo = sch.get("minimum", sch.get("exclusiveMinimum", 0))
+    hi = sch.get("maximum", sch.get("exclusiveMaximum"))
+    if hi is None or not (lo <= x / 1e6 <= hi):
+        return ""
+    return f"{x:.10g} Hz = {x / 1e6:.10g} MHz"
+
+
 def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
     """Turn one schema error into a one-line :class:`StudyError` naming the key path."""
     path = join_path(prefix, *err.absolute_path)
@@ -118,7 +139,8 @@ def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
     if v in ("additionalProperties", "unevaluatedProperties") and err.validator_value is False:
         unknown = _unknown_keys(err)
         name = unknown[0] if unknown else "?"
-        return StudyError(join_path(path, name), "unknown key", name, _allowed(err))
+        return StudyError(join_path(path, name), "unknown key" + did_you_mean(name, sch_props(err)), name,
+                          _allowed(err))
     if v == "propertyNames":
         bad = err.instance
         return StudyError(path, f"bad name {value2text(bad)}", bad, "names of letters, digits and _ (not starting with a digit)")
@@ -129,6 +151,14 @@ def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
         return StudyError(path, "must not be empty", err.instance, _allowed(err))
     if v == "minItems" and isinstance(err.instance, list) and not err.instance:
         return StudyError(path, "must not be empty", err.instance, _allowed(err))
+    if v == "enum" and isinstance(err.instance, str):
+        return StudyError(path, "not an allowed value" + did_you_mean(err.instance, [str(x) for x in err.validator_value]),
+                          err.instance, _allowed(err))
+    if v in ("maximum", "exclusiveMaximum") and "_MHz" in str(path):
+        hz = _looks_like_hz(err)
+        if hz:
+            return StudyError(path, f"too large: this looks like Hz ({hz}); give the frequency in MHz", err.instance,
+                              _allowed(err))
     problem = {
         "type": "wrong type",
         "enum": "not an allowed value",
