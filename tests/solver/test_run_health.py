@@ -71,9 +71,14 @@ def test_energy_growth_after_the_pulse_is_an_instability():
 
 
 def test_a_run_shorter_than_its_pulse_is_refused():
-    v = health.judge_run(engine.parse_engine_log(_log([(1000, "3.13e-18", " 0.00")], done=1000)), FC, -50.0)
+    cap = "RunFDTD: Warning: Max. number of timesteps was reached before the end-criteria of -50dB was reached... \n"
+    v = health.judge_run(engine.parse_engine_log(_log([(1000, "3.13e-18", " 0.00")]) + cap + DONE.format(ts=1000)),
+                         FC, -50.0)
     assert not v["decay_reached"] and "before the excitation pulse had passed" in v["reason"]
     assert "raise max_timesteps" in v["reason"]
+    # stopped by its energy criterion before the pulse's envelope fell that far
+    v = health.judge_run(engine.parse_engine_log(_log([(2000, "3.13e-23", "50.10")], done=2000)), FC, -50.0)
+    assert not v["decay_reached"] and "give a lower end_criterion_dB" in v["reason"], v
 
 
 def test_pml_thickness_is_stored_for_the_wall_face_too():

@@ -91,7 +91,9 @@ def judge_run(info: dict, pulse_fc_Hz: float | None, end_criterion_dB: float | N
     if steps is not None and n_pass and steps < n_pass:
         out["reason"] = (f"run ended after {steps} timesteps ({steps * dt * 1e9:.3g} ns), before the excitation "
                          f"pulse had passed: its envelope falls to the end criterion only after {n_pass} timesteps "
-                         f"({n_pass * dt * 1e9:.3g} ns); raise max_timesteps")
+                         f"({n_pass * dt * 1e9:.3g} ns); "
+                         + ("raise max_timesteps" if info.get("max_timesteps_reached") else
+                            "the energy criterion stopped it: give a lower end_criterion_dB"))
         return out
     if n_exc:  # growth: only once the source is silent (the whole pulse has been fed in)
         lowest = None
