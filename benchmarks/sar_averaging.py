@@ -14,7 +14,8 @@ import time
 
 import numpy as np
 
-from bodysweep.workflow.post.sar_average import VALID, average_sar, exact_cube_average_bruteforce
+from bodysweep.workflow.post.sar_average import VALID, average_sar
+from bodysweep.workflow.reference.sar_bruteforce import exact_cube_average_bruteforce
 
 
 def graded_edges(n, fine, coarse, centre=0.0):
