@@ -148,3 +148,17 @@ def test_peak_cube_centre_matches_bruteforce():
         # the peak voxel lies inside or on the face of its cube
         half = fast.peak_cube_side_m / 2
         assert all(abs(c - v) <= half + 1e-12 for c, v in zip(fast.peak_cube_centre_m, fast.peak_location_m))
+
+
+def test_search_cut_short_says_so():
+    # a search stopped after one step still returns a valid flush cube's average, not above the full
+    # search's, and says it did not converge (common practice: an iteration limit is reported, not hidden)
+    x, y, z, X, Y, Z = half_space(5, lat=(2.4e-3, 3.2e-3))
+    rho = np.where(Z < 0, 1000.0, 0.0)
+    sar = np.where(Z < 0, np.exp(Z / 5e-3) * np.exp(-((X - 1.3e-3) ** 2 + (Y + 0.7e-3) ** 2) / 6e-3**2), 0.0)
+    full = flush_cube_peak(sar, rho, x, y, z, 1e-3)
+    short = flush_cube_peak(sar, rho, x, y, z, 1e-3, max_steps=1)
+    assert full.converged and not short.converged
+    assert np.isfinite(short.peak) and short.peak <= full.peak
+    rep = reported_peak(average_sar(sar, rho, x, y, z, 1e-3), short)
+    assert rep["flush_search_converged"] is False

@@ -73,6 +73,9 @@ class FlushCube:
         Background volume fraction of the cube.
     n_surface_faces : int
         Surface faces of the grid (starting positions evaluated).
+    converged : bool
+        Whether the position search ended on its step tolerance (False: it hit ``max_steps``; the value is
+        then still the average of a valid flush cube, but maybe not the largest one).
     """
 
     mass_kg: float
@@ -85,6 +88,7 @@ class FlushCube:
     voxel_centre_m: tuple = ()
     air_fraction: float = float("nan")
     n_surface_faces: int = 0
+    converged: bool = True
 
 
 def _surface_faces(tissue):
@@ -295,7 +299,7 @@ def flush_cube_peak(
         mass_kg=mass_kg, peak=float(v[0]), cube_centre_m=tuple(float(c) for c in centre), side_m=float(L[0]),
         face=("+" if cur_sgn[j] < 0 else "-") + "xyz"[int(cur_ax[j])], surface_m=float(cur[j, cur_ax[j]]),
         voxel_index=vi, voxel_centre_m=tuple(float(cc[a][vi[a]]) for a in range(3)),
-        air_fraction=float(air[0]), n_surface_faces=n_faces)
+        air_fraction=float(air[0]), n_surface_faces=n_faces, converged=not bool(active.any()))
 
 
 def _num(v):
@@ -320,7 +324,8 @@ def reported_peak(grid, flush: FlushCube) -> dict:
         ``cube_centre_m``, ``cube_side_m``, ``voxel_centre_m`` of that peak, and both candidates:
         ``grid_peak_W_per_kg`` (with ``grid_cube_centre_m``, ``grid_cube_side_m``, ``grid_voxel_centre_m``,
         ``grid_voxel_status``) and ``flush_peak_W_per_kg`` (with ``flush_cube_centre_m``,
-        ``flush_cube_side_m``, ``flush_voxel_centre_m``, ``flush_face``, ``flush_air_fraction``).
+        ``flush_cube_side_m``, ``flush_voxel_centre_m``, ``flush_face``, ``flush_air_fraction``,
+        ``flush_search_converged``).
         Positions are lists in m, None where missing.
     """
     g, f = float(grid.peak), float(flush.peak)
@@ -336,6 +341,7 @@ def reported_peak(grid, flush: FlushCube) -> dict:
         "flush_voxel_centre_m": list(flush.voxel_centre_m) or None,
         "flush_face": flush.face or None,
         "flush_air_fraction": _num(flush.air_fraction),
+        "flush_search_converged": bool(flush.converged),
     }
     use_flush = math.isfinite(f) and not (math.isfinite(g) and g >= f)
     src = "flush" if use_flush else "grid"
