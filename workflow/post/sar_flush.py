@@ -299,7 +299,7 @@ def flush_cube_peak(
         mass_kg=mass_kg, peak=float(v[0]), cube_centre_m=tuple(float(c) for c in centre), side_m=float(L[0]),
         face=("+" if cur_sgn[j] < 0 else "-") + "xyz"[int(cur_ax[j])], surface_m=float(cur[j, cur_ax[j]]),
         voxel_index=vi, voxel_centre_m=tuple(float(cc[a][vi[a]]) for a in range(3)),
-        air_fraction=float(air[0]), n_surface_faces=n_faces, converged=not bool(active.any()))
+        air_fraction=max(float(air[0]), 0.0), n_surface_faces=n_faces, converged=not bool(active.any()))
 
 
 def _num(v):
