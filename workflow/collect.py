@@ -299,7 +299,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
             mass_cols[col] = None
             row[col] = _num(s.get("peak_W_per_kg_per_W"))
             cube = s.get("cube_centre_m") or [math.nan] * 3
-            vox = s.get("voxel_centre_m") or [math.nan] * 3
+            vox = s.get("voxel_centre_m") or s.get("location_m") or [math.nan] * 3  # location_m: before version 3
             sar_rows.append({"case_id": cid, "frequency_MHz": f_Hz * 1e-6,
                              "mass_g": _num(s.get("mass_kg")) * 1e3,
                              "peak_W_per_kg_per_W": _num(s.get("peak_W_per_kg_per_W")),

@@ -110,6 +110,8 @@ def verify_metrics(d, cid: str, m: dict) -> list[str]:
                 for row in m.get("sar") or []:
                     name = f"avg_{float(row['mass_kg']) * 1e3:g}g"
                     peak = row.get("peak_W_per_kg_per_W")
+                    if "grid_peak_W_per_kg_per_W" not in row:  # written before post-processing version 3
+                        row = {**row, "grid_peak_W_per_kg_per_W": peak}
                     grid = row.get("grid_peak_W_per_kg_per_W")
                     flush = row.get("flush_peak_W_per_kg_per_W")
                     # the reported peak is the larger of the voxel-grid peak and the best flush cube

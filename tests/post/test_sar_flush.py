@@ -46,6 +46,23 @@ def test_flush_cube_of_a_linear_depth_profile_is_the_closed_form():
     assert f.cube_centre_m[2] == pytest.approx(-L / 2, rel=1e-9) and f.air_fraction == pytest.approx(0.0, abs=1e-9)
 
 
+def test_every_face_direction_is_searched():
+    # the closed-form case of the linear depth profile turned so that the tissue lies at x > 0 (surface
+    # facing -x) and mirrored so that it lies at y < 0 (surface facing +y): the same average (analytic)
+    x, y, z, X, Y, Z = half_space(1)
+    rho = np.where(Z < 0, 1000.0, 0.0)
+    sar = np.where(Z < 0, 2.0 - 150.0 * Z, 0.0)
+    m = 1000.0 * 8e-3**3
+    ref = flush_cube_peak(sar, rho, x, y, z, m)
+    # new axes (x', y', z') = (-z, y, x): tissue at x' > 0
+    turned = flush_cube_peak(np.transpose(sar, (2, 1, 0))[::-1], np.transpose(rho, (2, 1, 0))[::-1],
+                             -z[::-1], y, x, m)
+    assert turned.face == "-x" and turned.peak == pytest.approx(ref.peak, rel=1e-9)
+    # new axes (x', y', z') = (x, z, y): tissue at y' < 0
+    mirrored = flush_cube_peak(np.transpose(sar, (0, 2, 1)), np.transpose(rho, (0, 2, 1)), x, z, y, m)
+    assert mirrored.face == "+y" and mirrored.peak == pytest.approx(ref.peak, rel=1e-9)
+
+
 def test_flush_search_equals_continuous_bruteforce_and_is_reported():
     # A laterally peaked field decaying with depth, peak between voxel centres (invented demo field). The
     # best cube lies flush with the surface; the voxel-grid procedure cannot put a cube there. Reference:
