@@ -156,7 +156,7 @@ def test_peak_cube_centre_matches_bruteforce():
     rho = rng.uniform(900, 1900, shape)
     rho[:, :, -2:] = 0.0
     sar = rng.exponential(1.0, shape)
-    for m in (0.2e-3, 0.35e-3):
+    for m in (0.35e-3,):
         fast = average_sar(sar, rho, *edges, m)
         ref = exact_cube_average_bruteforce(sar, rho, *edges, m)
         assert fast.peak_index == ref.peak_index

@@ -328,14 +328,14 @@ def average_sar(
         if st == ENCLOSED:
             # the valid cubes with exactly this average that enclose the voxel (the value was copied)
             cand = np.nonzero(avg_valid == avg[idx])[0]
-            for j in cand:
-                inside = all(
-                    snap_to_mesh(edges[a], v_lo[j:j + 1, a])[0] <= edges[a][idx[a]]
-                    and edges[a][idx[a] + 1] <= snap_to_mesh(edges[a], v_hi[j:j + 1, a])[0]
-                    for a in range(3))
-                if inside:
-                    return 0.5 * (v_lo[j] + v_hi[j]), float(v_hi[j, 0] - v_lo[j, 0])
-            raise AssertionError(f"average_sar: no enclosing cube holds the average of voxel {idx}")
+            inside = np.ones(cand.size, dtype=bool)
+            for a in range(3):
+                inside &= snap_to_mesh(edges[a], v_lo[cand, a]) <= edges[a][idx[a]]
+                inside &= edges[a][idx[a] + 1] <= snap_to_mesh(edges[a], v_hi[cand, a])
+            if not inside.any():
+                raise AssertionError(f"average_sar: no enclosing cube holds the average of voxel {idx}")
+            j = cand[np.argmax(inside)]
+            return 0.5 * (v_lo[j] + v_hi[j]), float(v_hi[j, 0] - v_lo[j, 0])
         k = int(np.nonzero(np.all(face_cube["rest"] == np.array(idx), axis=1))[0][0])
         ax, sgn = FACE_DIRS[int(face_cube["best"][k])]
         ol, oh = face_offsets(ax, sgn)
