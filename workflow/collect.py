@@ -43,7 +43,7 @@ SUMMARY_TAIL = ("warnings", "runtime_s", "cells", "timesteps", "decay_reached")
 SPARAMS_FIXED = ("case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg")
 SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
                "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
-               "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face")
+               "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face", "flush_search_converged")
 
 
 # -- small conversions ------------------------------------------------------------------------------
@@ -309,7 +309,8 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
                              **{f"voxel_{a}_mm": _num(v) * 1e3 for a, v in zip("xyz", vox)},
                              "grid_peak_W_per_kg_per_W": _num(s.get("grid_peak_W_per_kg_per_W")),
                              "flush_peak_W_per_kg_per_W": _num(s.get("flush_peak_W_per_kg_per_W")),
-                             "flush_face": str(s.get("flush_face") or "")})
+                             "flush_face": str(s.get("flush_face") or ""),
+                             "flush_search_converged": s.get("flush_search_converged") is not False})
         ports = m.get("ports") or {}
         for p in (1, 2):
             z = _pair2complex(ports.get(f"Zin{p}_ohm"))

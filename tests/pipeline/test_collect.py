@@ -21,7 +21,7 @@ SUMMARY_REQUIRED = {"case_id", "status", "reason", "frequency_MHz", "S11_dB", "S
 SPARAMS_REQUIRED = ["case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg"]
 SAR_REQUIRED = ["case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
                 "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
-                "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face"]
+                "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face", "flush_search_converged"]
 
 
 def test_decibel_conversions():
@@ -65,7 +65,7 @@ def _ok_metrics(f_Hz, s21):
             "sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": 12.5, "peak_from": "flush",
                      "cube_centre_m": [0.001, -0.002, -0.005], "cube_side_m": 0.01,
                      "voxel_centre_m": [0.0012, -0.0021, -0.0005], "grid_peak_W_per_kg_per_W": 12.1,
-                     "flush_peak_W_per_kg_per_W": 12.5, "flush_face": "+z"},
+                     "flush_peak_W_per_kg_per_W": 12.5, "flush_face": "+z", "flush_search_converged": False},
                     {"mass_kg": 0.01, "peak_W_per_kg_per_W": 5.0, "peak_from": "grid",
                      "cube_centre_m": [0.0, 0.0, -0.011], "cube_side_m": 0.0215,
                      "voxel_centre_m": [0.0, 0.0, -0.005], "grid_peak_W_per_kg_per_W": 5.0,
@@ -141,6 +141,7 @@ def test_tables_columns_units_and_values(tmp_path):
     assert (r.cube_x_mm, r.cube_y_mm, r.cube_z_mm, r.cube_side_mm) == pytest.approx((1.0, -2.0, -5.0, 10.0))
     assert (r.voxel_x_mm, r.voxel_y_mm, r.voxel_z_mm) == pytest.approx((1.2, -2.1, -0.5))
     assert (r.peak_from, r.flush_face) == ("flush", "+z")
+    assert not r.flush_search_converged  # a search cut short is flagged in the table
     assert (r.grid_peak_W_per_kg_per_W, r.flush_peak_W_per_kg_per_W) == pytest.approx((12.1, 12.5))
     r10 = sar[(sar.case_id == "aaa") & np.isclose(sar.mass_g, 10.0)].iloc[0]
     assert r10.peak_from == "grid" and math.isnan(r10.flush_peak_W_per_kg_per_W)  # no flush cube: empty
