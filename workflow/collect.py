@@ -3,7 +3,8 @@
 Three tables, every row carrying the ``case_id`` (see the data dictionary in README.md):
 
 ``sparams``  long form: one row per case, band frequency and S-matrix entry ``(i, j)``;
-``sar``      one row per case and averaging mass: peak averaged SAR per watt of input power and where;
+``sar``      one row per case and averaging mass: peak averaged SAR per watt of input power, which cube gave
+             it (voxel grid or flush with a surface), its cube centre and side and the peak voxel;
 ``summary``  one row per case (one case = one frequency): parameters, S11/S21/S22 in dB, port impedances,
              mismatch losses, peak SAR, SAR-limited accepted power per exposure limit, implant power per
              matching variant, the study's figure of merit, status and warnings.
@@ -40,7 +41,9 @@ LINK_COLUMNS = (("sar_limited_accepted_W", "sar_limited_accepted_dBm", "deciding
 WARNING_SEPARATOR = " | "
 SUMMARY_TAIL = ("warnings", "runtime_s", "cells", "timesteps", "decay_reached")
 SPARAMS_FIXED = ("case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg")
-SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "x_mm", "y_mm", "z_mm")
+SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
+               "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
+               "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face", "flush_search_converged")
 
 
 # -- small conversions ------------------------------------------------------------------------------
@@ -295,11 +298,19 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
             col = f"peak_SAR_{tag}_W_per_kg_per_W"
             mass_cols[col] = None
             row[col] = _num(s.get("peak_W_per_kg_per_W"))
-            loc = s.get("location_m") or [math.nan] * 3
+            cube = s.get("cube_centre_m") or [math.nan] * 3
+            vox = s.get("voxel_centre_m") or s.get("location_m") or [math.nan] * 3  # location_m: before version 3
             sar_rows.append({"case_id": cid, "frequency_MHz": f_Hz * 1e-6,
                              "mass_g": _num(s.get("mass_kg")) * 1e3,
                              "peak_W_per_kg_per_W": _num(s.get("peak_W_per_kg_per_W")),
-                             "x_mm": _num(loc[0]) * 1e3, "y_mm": _num(loc[1]) * 1e3, "z_mm": _num(loc[2]) * 1e3})
+                             "peak_from": str(s.get("peak_from") or ""),
+                             **{f"cube_{a}_mm": _num(v) * 1e3 for a, v in zip("xyz", cube)},
+                             "cube_side_mm": _num(s.get("cube_side_m")) * 1e3,
+                             **{f"voxel_{a}_mm": _num(v) * 1e3 for a, v in zip("xyz", vox)},
+                             "grid_peak_W_per_kg_per_W": _num(s.get("grid_peak_W_per_kg_per_W")),
+                             "flush_peak_W_per_kg_per_W": _num(s.get("flush_peak_W_per_kg_per_W")),
+                             "flush_face": str(s.get("flush_face") or ""),
+                             "flush_search_converged": s.get("flush_search_converged") is not False})
         ports = m.get("ports") or {}
         for p in (1, 2):
             z = _pair2complex(ports.get(f"Zin{p}_ohm"))

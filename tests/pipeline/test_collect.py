@@ -19,7 +19,9 @@ SUMMARY_REQUIRED = {"case_id", "status", "reason", "frequency_MHz", "S11_dB", "S
                     "implant_power_both_matched_dBm", "figure_of_merit", "figure_of_merit_value",
                     "max_available_gain_dB", "warnings", "runtime_s", "cells"}
 SPARAMS_REQUIRED = ["case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg"]
-SAR_REQUIRED = ["case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "x_mm", "y_mm", "z_mm"]
+SAR_REQUIRED = ["case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
+                "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
+                "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face", "flush_search_converged"]
 
 
 def test_decibel_conversions():
@@ -60,8 +62,14 @@ def _study(tmp_path, cases):
 def _ok_metrics(f_Hz, s21):
     return {"status": "ok", "reason": "", "frequency_Hz": f_Hz,
             "S11": [0.3, -0.4], "S21": [s21.real, s21.imag], "S12": [s21.real, s21.imag], "S22": [0.0, 0.5],
-            "sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": 12.5, "location_m": [0.001, -0.002, -0.004]},
-                    {"mass_kg": 0.01, "peak_W_per_kg_per_W": 5.0, "location_m": [0.0, 0.0, -0.005]}],
+            "sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": 12.5, "peak_from": "flush",
+                     "cube_centre_m": [0.001, -0.002, -0.005], "cube_side_m": 0.01,
+                     "voxel_centre_m": [0.0012, -0.0021, -0.0005], "grid_peak_W_per_kg_per_W": 12.1,
+                     "flush_peak_W_per_kg_per_W": 12.5, "flush_face": "+z", "flush_search_converged": False},
+                    {"mass_kg": 0.01, "peak_W_per_kg_per_W": 5.0, "peak_from": "grid",
+                     "cube_centre_m": [0.0, 0.0, -0.011], "cube_side_m": 0.0215,
+                     "voxel_centre_m": [0.0, 0.0, -0.005], "grid_peak_W_per_kg_per_W": 5.0,
+                     "flush_peak_W_per_kg_per_W": None, "flush_face": None}],
             "limits": [{"mass_kg": 0.001, "limit_W_per_kg": 1.6, "source": "limit one",
                         "sar_limited_accepted_W": 1.6 / 12.5,
                         "implant_power_W": {"unmatched": 1.6 / 12.5 * 0.7e-3, "tx_matched": 1.6 / 12.5 * 1e-3,
@@ -130,7 +138,13 @@ def test_tables_columns_units_and_values(tmp_path):
 
     assert list(sar.columns) == SAR_REQUIRED
     r = sar[(sar.case_id == "aaa") & np.isclose(sar.mass_g, 1.0)].iloc[0]
-    assert (r.x_mm, r.y_mm, r.z_mm) == pytest.approx((1.0, -2.0, -4.0))
+    assert (r.cube_x_mm, r.cube_y_mm, r.cube_z_mm, r.cube_side_mm) == pytest.approx((1.0, -2.0, -5.0, 10.0))
+    assert (r.voxel_x_mm, r.voxel_y_mm, r.voxel_z_mm) == pytest.approx((1.2, -2.1, -0.5))
+    assert (r.peak_from, r.flush_face) == ("flush", "+z")
+    assert not r.flush_search_converged  # a search cut short is flagged in the table
+    assert (r.grid_peak_W_per_kg_per_W, r.flush_peak_W_per_kg_per_W) == pytest.approx((12.1, 12.5))
+    r10 = sar[(sar.case_id == "aaa") & np.isclose(sar.mass_g, 10.0)].iloc[0]
+    assert r10.peak_from == "grid" and math.isnan(r10.flush_peak_W_per_kg_per_W)  # no flush cube: empty
     assert r.frequency_MHz == pytest.approx(403.0)
 
 

@@ -84,10 +84,15 @@ def test_finish_writes_touchstone_result_and_metrics(two_port_case):
     # (a mass average of non-negative values lies between their min and max: analytic)
     assert np.nanmax(avg10) <= np.max(local[rho > 0]) * (1 + 1e-6)
     peaks = {r["mass_kg"]: r["peak_W_per_kg_per_W"] for r in m["sar"]}
-    assert peaks[0.01] == pytest.approx(np.nanmax(avg10), rel=1e-5)
+    grid10 = m["sar"][1]["grid_peak_W_per_kg_per_W"]
+    assert grid10 == pytest.approx(np.nanmax(avg10), rel=1e-5)  # the voxel-grid procedure's volume
+    assert peaks[0.01] == max(grid10, m["sar"][1]["flush_peak_W_per_kg_per_W"] or 0.0)  # the larger is reported
     assert peaks[0.001] >= peaks[0.01] > 0
-    loc = m["sar"][1]["location_m"]
+    assert peaks[0.01] <= np.max(local[rho > 0]) * (1 + 1e-6)  # a mass average of non-negative values (analytic)
+    loc = m["sar"][1]["voxel_centre_m"]
     assert -0.03 <= loc[2] <= 0.0  # inside the phantom
+    cube, side = m["sar"][1]["cube_centre_m"], m["sar"][1]["cube_side_m"]
+    assert all(abs(c - v) <= side / 2 + 1e-9 for c, v in zip(cube, loc))  # the peak voxel touches its cube
     # link budget: the SAR-limited accepted power is limit / peak; port-1-matched implant power
     # = accepted |S21|^2 / (1 - |S11|^2) (operating power gain with a Z0 load, Pozar sec. 12.1)
     lim = m["limits"][0]

@@ -9,7 +9,8 @@
     grid (cell edges), the S-matrix over the band; attributes: case id, scene, settings, versions;
 ``metrics.json``
     the small summary the collectors read (status, S-parameters at the case frequency as [re, im],
-    passivity, reciprocity, peak SAR per mass with location, limits with allowed input power and
+    passivity, reciprocity, peak SAR per mass: the larger of the voxel-grid procedure's peak and the best
+    cube flush with a tissue surface, both with cube centre and peak voxel; limits with allowed input power and
     implant power per matching variant, port impedances, mismatch losses, Rollett K, maximum available
     gain, warnings, runtime, cells, timesteps, decay, the solver's own
     averaged SAR beside ours when it was run).
@@ -204,8 +205,8 @@ def _versions() -> dict:
 def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:
     """The engine's own averaged SAR peaks (if it was run) beside ours, per W accepted at port 1.
 
-    ``ours`` maps mass (kg) to our peak (W/kg per W). Per mass: the engine's peak and its location,
-    ours and the relative difference ``(engine - ours) / ours``, or the reason it is missing.
+    ``ours`` maps mass (kg) to our peak of the same voxel-grid procedure (W/kg per W), not the flush-cube
+    peak. Per mass: the engine's peak and its location, ours and the relative difference ``(engine - ours) / ours``, or the reason it is missing.
     """
     st_path = case_dir / "excite_1" / "solver_sar_status.json"
     if not st_path.exists():
@@ -253,6 +254,7 @@ def finish_case(case_dir) -> dict:
 
     from bodysweep.workflow.atomic import atomic_path, write_json
     from bodysweep.workflow.post.sar_average import average_sar
+    from bodysweep.workflow.post.sar_flush import flush_cube_peak, reported_peak
 
     from .settings import settings_from_dict
 
@@ -326,20 +328,21 @@ def finish_case(case_dir) -> dict:
         sp = sar_per_watt(raw, p_acc)
         edges = (raw["x_edges_m"], raw["y_edges_m"], raw["z_edges_m"])
         volumes["local"] = sp["local"]
+        grid_peaks = {}
         for m in sar_cfg.get("masses_kg", [0.001, 0.01]):
             m = float(m)
-            r = average_sar(sp["local"], raw["density_kg_m3"], *edges, m,
-                            max_air_fraction=float(sar_cfg.get("max_air_fraction", 0.1)))
-            peaks[round(m, 9)] = float(r.peak)
+            air = float(sar_cfg.get("max_air_fraction", 0.1))
+            r = average_sar(sp["local"], raw["density_kg_m3"], *edges, m, max_air_fraction=air)
+            flush = flush_cube_peak(sp["local"], raw["density_kg_m3"], *edges, m, max_air_fraction=air)
+            rep = reported_peak(r, flush)  # the larger of the voxel-grid peak and the best flush cube
+            peaks[round(m, 9)] = rep["peak_W_per_kg"] if rep["peak_W_per_kg"] is not None else float("nan")
+            grid_peaks[m] = float(r.peak)
             volumes[f"avg_{m * 1e3:g}g"] = r.avg
-            sar_rows.append({"mass_kg": m, "peak_W_per_kg_per_W": _finite_or_none(r.peak),
-                             "location_m": [float(v) for v in r.peak_location_m], "peak_status": int(r.peak_status)})
+            sar_rows.append({"mass_kg": m, **{k.replace("_W_per_kg", "_W_per_kg_per_W"): v for k, v in rep.items()}})
         metrics["accepted_power_port1_W"] = p_acc
         metrics["absorbed_fraction_tissue"] = sp["absorbed_tissue_W_per_W"]
         metrics["absorbed_fraction_all"] = sp["absorbed_all_W_per_W"]
-        metrics["solver_sar"] = _solver_sar_comparison(case_dir, {m: peaks[round(m, 9)] for m in
-                                                                  (float(x) for x in sar_cfg.get("masses_kg", [0.001, 0.01]))},
-                                                       p_acc)
+        metrics["solver_sar"] = _solver_sar_comparison(case_dir, grid_peaks, p_acc)
     metrics["sar"] = sar_rows
     metrics["limits"] = link_budget_rows(sar_cfg.get("limits", []), peaks, S0)
     from bodysweep.workflow.post.portfigures import STRONG_COUPLING, port_figures
