@@ -27,6 +27,7 @@ Everything is in metres.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -157,11 +158,16 @@ def wavelength_in_material(frequency_Hz: float, eps_r: float) -> float:
     return C0 / (frequency_Hz * np.sqrt(eps_r))
 
 
-def merge_fixed_lines(cands: list[tuple[float, int, str]], threshold: float) -> list[tuple[float, int, str]]:
+def merge_fixed_lines(cands: list[tuple[float, int, str]], threshold: float, keep_apart: float = math.inf,
+                      notes: list[str] | None = None) -> list[tuple[float, int, str]]:
     """Merge fixed lines closer than ``threshold``: the lower priority goes (ties: the later one).
 
     ``cands`` holds ``(position, priority, reason)``. Returns the survivors sorted by position.
-    Two top-priority lines closer than the threshold raise :class:`MeshRefused`.
+    Two port lines (gap ends and feeds, often of different antennas at nearby heights) are never merged:
+    a feed gap must end on a mesh line, and moving one would change that antenna's feed. When they are at
+    least ``keep_apart`` apart (a cell the mesh check accepts) both stay, the fill grades down to the
+    small cell between them, and a note says so; closer than that raises :class:`MeshRefused`. Two
+    domain bounds closer than the threshold raise :class:`MeshRefused` as well.
     """
     pts = sorted(cands)
     # exact duplicates first: keep the highest priority, join reasons
@@ -172,9 +178,13 @@ def merge_fixed_lines(cands: list[tuple[float, int, str]], threshold: float) -> 
                 merged[-1][1], merged[-1][2] = pr, why
             continue
         merged.append([p, pr, why])
+    kept_pairs: set[tuple[float, float]] = set()
     while len(merged) > 1:
         pos = np.array([m[0] for m in merged])
         gaps = np.diff(pos)
+        for j in range(len(gaps)):  # port line pairs kept apart take no further part
+            if (merged[j][0], merged[j + 1][0]) in kept_pairs:
+                gaps[j] = np.inf
         j = int(np.argmin(gaps))
         if gaps[j] >= threshold:
             break
@@ -186,8 +196,18 @@ def merge_fixed_lines(cands: list[tuple[float, int, str]], threshold: float) -> 
         keep = merged[j] if drop == j + 1 else merged[j + 1]
         gone = merged[drop]
         if gone[1] == P_PORT and keep[1] == P_PORT:
-            raise MeshRefused(f"port lines at {a[0]*1e3:.4f} mm ({a[2]}) and {b[0]*1e3:.4f} mm ({b[2]}) are closer "
-                              f"than the merge threshold {threshold*1e3:.4f} mm; lower the solver's min_cell_mm")
+            if gaps[j] < keep_apart:
+                raise MeshRefused(
+                    f"port lines at {a[0]*1e3:.4f} mm ({a[2]}) and {b[0]*1e3:.4f} mm ({b[2]}) are only "
+                    f"{gaps[j]*1e3:.4f} mm apart: a cell that small (under {keep_apart*1e3:.4f} mm, "
+                    f"{SLIVER_FRACTION} of the smallest feature) is refused and merging them would change a feed "
+                    f"gap; move one antenna (position_mm, depth_mm, standoff_mm) or change a feed_gap_mm")
+            kept_pairs.add((a[0], b[0]))
+            if notes is not None:
+                notes.append(f"port lines at {a[0]*1e3:.4f} mm ({a[2]}) and {b[0]*1e3:.4f} mm ({b[2]}) kept "
+                             f"{gaps[j]*1e3:.4f} mm apart (under the merge threshold {threshold*1e3:.4f} mm; a feed "
+                             f"gap must end on a line)")
+            continue
         del merged[drop]
     return [tuple(m) for m in merged]  # type: ignore[misc]
 
@@ -373,7 +393,7 @@ def auto_mesh(model: SceneModel, settings: SolverSettings) -> MeshPlan:
     Raises
     ------
     MeshRefused
-        If ``min_cell_m`` would merge the two ends of a port gap.
+        If two port lines are too close to keep both (see :func:`merge_fixed_lines`), or two domain bounds.
     """
     if not model.primitives and not model.ports:
         raise ValueError("auto_mesh: the scene has no primitives and no ports; nothing to mesh")
@@ -387,8 +407,11 @@ def auto_mesh(model: SceneModel, settings: SolverSettings) -> MeshPlan:
     notes = list(notes) + [f"finest requested cell {finest*1e3:.4f} mm; merge threshold {threshold*1e3:.4f} mm"]
     lines, kept = [], {}
     pad = settings.absorbing_cells
+    keep_apart = SLIVER_FRACTION * smallest_feature(model)  # the smallest cell check_mesh accepts
     for a in AXES:
-        survivors = merge_fixed_lines(fixed[a], threshold)
+        kept_notes: list[str] = []
+        survivors = merge_fixed_lines(fixed[a], threshold, keep_apart, kept_notes)
+        notes += [f"{a}: {n}" for n in kept_notes]
         n_gone = len({round(p, 12) for p, _, _ in fixed[a]}) - len(survivors)
         if n_gone:
             notes.append(f"{a}: {n_gone} fixed line(s) merged into neighbours closer than {threshold*1e3:.4f} mm")
