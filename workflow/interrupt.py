@@ -236,17 +236,17 @@ def _marked_path(rel: Path) -> str | None:
         return None
 
 
-def settle_incomplete(layout: StudyLayout, workdir: str | Path = ".") -> list[Path]:
+def settle_incomplete(layout: StudyLayout, workdir: str | Path = ".", also: tuple[Path, ...] = ()) -> list[Path]:
     """Remove Snakemake's incomplete marks of this study's outputs written after the mark (complete).
 
-    Call only while holding the study's run lock (no job of the study is running). Returns the outputs
-    whose mark was removed.
+    Call only while holding the study's run lock (no job of the study is running). ``also``: further
+    folders whose outputs this study's jobs write. Returns the outputs whose mark was removed.
     """
     workdir = Path(workdir).resolve()
     marks = workdir / ".snakemake" / "incomplete"
     if not marks.is_dir():
         return []
-    root = (layout.root if layout.root.is_absolute() else workdir / layout.root).resolve()
+    roots = [(r if Path(r).is_absolute() else workdir / r).resolve() for r in (layout.root, *also)]
     settled = []
     for mark in sorted(p for p in marks.rglob("*") if p.is_file()):
         name = _marked_path(mark.relative_to(marks))
@@ -254,11 +254,12 @@ def settle_incomplete(layout: StudyLayout, workdir: str | Path = ".") -> list[Pa
             continue
         out = Path(name) if Path(name).is_absolute() else workdir / name
         out = Path(os.path.normpath(out))
+        if not any(out == r or r in out.parents for r in roots):
+            continue  # another study's output: its own run decides
         try:
-            out.relative_to(root)
             written, started = out.stat().st_mtime_ns, mark.stat().st_mtime_ns
-        except (ValueError, OSError):
-            continue  # another study's output, or not written: the job is redone
+        except OSError:
+            continue  # not written: the job is redone
         if written >= started:
             mark.unlink(missing_ok=True)
             settled.append(out)

@@ -235,3 +235,51 @@ def test_settle_incomplete_keeps_only_outputs_written_after_their_mark(tmp_path)
     assert not files["new"][1].exists()
     for name in ("old", "missing", "other"):  # stale, unwritten, or another study's: Snakemake decides
         assert files[name][1].exists(), name
+
+
+def test_cluster_jobs_left_are_named_with_the_reason(tmp_path, monkeypatch):
+    """Without squeue/scancel on this host every job id of the log is named as left, with that reason."""
+    from bodysweep.workflow.interrupt import StopReport, cancel_cluster_jobs
+
+    log = tmp_path / "run.log"
+    log.write_text("earlier run: Job 1 has been submitted with SLURM jobid 7 (log: x).\n")
+    since = log.stat().st_size
+    with open(log, "a") as fh:
+        fh.write("Job 2 has been submitted with SLURM jobid 8 (log: y).\nJob 3 has been submitted with SLURM jobid 9 (log: z).\n")
+    monkeypatch.setenv("PATH", str(tmp_path))  # no squeue, no scancel
+    report = StopReport("SIGINT")
+    cancel_cluster_jobs(log, report, since)
+    assert report.cluster_checked == 2 and report.cluster_cancelled == []
+    assert report.cluster_left == [("8", "squeue/scancel not found on this host"),
+                                   ("9", "squeue/scancel not found on this host")]
+    lines = report.lines()
+    assert "cluster job 8 is left: squeue/scancel not found on this host" in lines
+
+
+def test_sigterm_while_snakemake_plans_stops_the_run(tmp_path):
+    """SIGTERM to `bodysweep run` as soon as its Snakemake is up: exit 6, no process of the run is left."""
+    study = tiny_study(tmp_path / "study.yaml", "tiny_term", depths=(6, 9))
+    proc = start_run(study, tmp_path, "--cores", "1")
+    try:
+        def snakemake_up():
+            kids = []
+            for p in descendants(proc.pid):
+                try:
+                    if b"-m\0snakemake\0" in Path(f"/proc/{p}/cmdline").read_bytes() and os.getsid(p) == p:
+                        kids.append(p)  # Snakemake, leading a session of its own
+                except OSError:
+                    continue
+            return kids or None
+
+        (sm,) = wait_for(snakemake_up, 120, "the run's snakemake", proc=proc)
+        time.sleep(2.0)
+        before = _run_pids(proc)
+        os.kill(proc.pid, signal.SIGTERM)
+        out, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            kill_group(proc)
+    assert proc.returncode == 6, out + err
+    assert "interrupted (SIGTERM)" in out and "interrupted by SIGTERM" in err, out + err
+    assert sm in before and [p for p in before if _alive(p)] == []
+    assert _processes_in(tmp_path) == []
