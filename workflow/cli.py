@@ -1,6 +1,6 @@
 """The ``bodysweep`` command line.
 
-bodysweep check   STUDY        schema and geometry checks, number of cases; writes nothing
+bodysweep check   STUDY        schema, geometry and mesh checks, number of cases; writes nothing
 bodysweep plan    STUDY        per case: done / to run / changed / failed, with cost estimates
 bodysweep run     STUDY        prepare case folders and run the pipeline (Snakemake) with progress
 bodysweep collect STUDY        merge case results into tables
@@ -339,9 +339,9 @@ def _run_locked(a, lock, log: Path) -> int:
     args = snakemake_args(a.study, results_dir=a.results_dir, workdir=".", cores=a.cores, jobs=a.jobs,
                           threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
     lock_fds = (lock.fd,)  # Snakemake holds the study lock too (runlock module docstring)
-    from .interrupt import RunInterrupted
+    from .interrupt import RunInterrupted, profile_submits
 
-    cluster = _profile_submits(a.profile)
+    cluster = profile_submits(resolve_profile(a.profile))
     try:
         rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
                            pass_fds=lock_fds, cluster=cluster)
@@ -377,35 +377,14 @@ def _run_locked(a, lock, log: Path) -> int:
     return EXIT_OK
 
 
-def _profile_submits(profile: str | None) -> bool:
-    """Whether the Snakemake profile hands jobs to a cluster scheduler (its ``executor`` is not local)."""
-    import yaml
-
-    from .pipeline import resolve_profile
-
-    prof = resolve_profile(profile)
-    try:
-        conf = yaml.safe_load((prof / "config.yaml").read_text()) if prof else {}
-    except (OSError, yaml.YAMLError):
-        return False
-    return str((conf or {}).get("executor", "local")) not in ("local", "dryrun", "touch")
-
-
 def _interrupted(a, exc, lock, prep, log: Path) -> int:
     """After a stop signal: say what was stopped and what is kept; leave the study clean; exit code 6."""
-    from .interrupt import settle_incomplete
-    from .runlock import clear_interrupted
+    from .interrupt import after_stop
 
     for line in (exc.report.lines() if exc.report else [f"interrupted ({exc})"]):
         print(line)
-    settle_incomplete(lock.layout, ".")  # finished jobs whose end Snakemake did not register are kept
-    clear_interrupted(lock.layout, ".")
-    done = sum((prep.layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in prep.entries)
-    solved = sum((prep.layout.case_dir(e["case_id"]) / f"excite_{p}" / "status.json").exists()
-                 for e in prep.entries for p in e["ports"])
-    n_solves = sum(len(e["ports"]) for e in prep.entries)
-    print(f"kept: {done} of {len(prep.entries)} cases finished, {solved} of {n_solves} solver runs done; "
-          f"`bodysweep run {a.study}` continues with the rest (log: {log})")
+    print(after_stop(lock.layout, prep.entries, ".") + f"; `bodysweep run {a.study}` continues with the rest "
+          f"(log: {log})")
     _err(f"interrupted by {exc.report.signal_name if exc.report else exc}; stopped the run")
     return EXIT_INTERRUPTED
 
@@ -525,7 +504,8 @@ def build_parser() -> argparse.ArgumentParser:
                             "study's budget.max_disk_GB, else 90%% of the free space where the results go)")
         p.add_argument("--accept-cost", action="store_true", help="run even when over the budget")
 
-    add("check", "check the study file (schema, geometry of every case) and count its cases; writes nothing",
+    add("check", "check the study file (schema, geometry and mesh of every case, as the solver would build "
+                 "them) and count its cases; writes nothing",
         cmd_check)
     budget(add("plan", "list each case as done / to run / changed / failed with cell count, timesteps, memory "
                        "and CPU-time estimates, and the total", cmd_plan))

@@ -265,3 +265,28 @@ def settle_incomplete(layout: StudyLayout, workdir: str | Path = ".", also: tupl
             settled.append(out)
     return settled
 
+
+
+# -- around a run -------------------------------------------------------------------------------------------
+def profile_submits(profile_dir: Path | None) -> bool:
+    """Whether a Snakemake profile folder hands jobs to a cluster scheduler (its ``executor`` is not local)."""
+    import yaml
+
+    try:
+        conf = yaml.safe_load((Path(profile_dir) / "config.yaml").read_text()) if profile_dir else {}
+    except (OSError, yaml.YAMLError):
+        return False
+    return str((conf or {}).get("executor", "local")) not in ("local", "dryrun", "touch")
+
+
+def after_stop(layout: StudyLayout, entries: list[dict], workdir: str | Path = ".") -> str:
+    """Leave a stopped study clean (call holding its run lock); one line saying what is finished and kept."""
+    from .runlock import clear_interrupted
+
+    settle_incomplete(layout, workdir)  # finished jobs whose end Snakemake did not register are kept
+    clear_interrupted(layout, workdir)
+    done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in entries)
+    solved = sum((layout.case_dir(e["case_id"]) / f"excite_{p}" / "status.json").exists()
+                 for e in entries for p in e["ports"])
+    n_solves = sum(len(e["ports"]) for e in entries)
+    return f"kept: {done} of {len(entries)} cases finished, {solved} of {n_solves} solver runs done"
