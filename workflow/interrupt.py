@@ -37,11 +37,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .layout import StudyLayout
+from .runlock import PARENT_ENV, clear_interrupted  # noqa: F401  (PARENT_ENV: pipeline marks its Snakemake)
 
 #: signals that make ``bodysweep run`` stop its run
 STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
-#: environment variable naming the ``bodysweep run`` that started a Snakemake process
-PARENT_ENV = "BODYSWEEP_RUN_PID"
 
 
 class RunInterrupted(Exception):
@@ -281,8 +280,6 @@ def profile_submits(profile_dir: Path | None) -> bool:
 
 def after_stop(layout: StudyLayout, entries: list[dict], workdir: str | Path = ".") -> str:
     """Leave a stopped study clean (call holding its run lock); one line saying what is finished and kept."""
-    from .runlock import clear_interrupted
-
     settle_incomplete(layout, workdir)  # finished jobs whose end Snakemake did not register are kept
     clear_interrupted(layout, workdir)
     done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in entries)

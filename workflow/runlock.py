@@ -35,6 +35,8 @@ from pathlib import Path
 from .layout import StudyLayout
 
 LOCK_NAME = "run.lock"
+#: environment variable naming the ``bodysweep run`` that started a Snakemake process
+PARENT_ENV = "BODYSWEEP_RUN_PID"
 #: the engine's scratch folder inside ``excite_<p>/`` (see :mod:`.solver.run`)
 SCRATCH_NAME = ".engine_run"
 
@@ -225,8 +227,6 @@ def other_snakemake_runs(layout: StudyLayout, exclude: tuple[int, ...] = ()) -> 
 
 def started_by(pid: int) -> int | None:
     """The pid of the ``bodysweep run`` that started process ``pid`` (from its environment), else None."""
-    from .interrupt import PARENT_ENV
-
     try:
         env = Path(f"/proc/{pid}/environ").read_bytes().split(b"\0")
     except OSError:
