@@ -31,11 +31,11 @@ PARALLEL_FROM = 64
 def code_signature() -> str:
     """Hash of the source files whose change alters an estimate (mesh, cost model, disk estimate, builders)."""
     from . import budget, estimate
-    from .solver import cost, mesh, settings
+    from .solver import cost, mesh, mesh_fill, settings
     import bodysweep.geometry as geometry
 
     h = hashlib.sha256()
-    for mod in (mesh, cost, settings, budget, estimate):
+    for mod in (mesh, mesh_fill, cost, settings, budget, estimate):
         h.update(Path(mod.__file__).read_bytes())
     h.update(str(geometry.BUILDER_VERSION).encode())
     return h.hexdigest()[:16]

@@ -344,7 +344,7 @@ def format_duration(s: float) -> str:
 
 def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], log_path: Path,
                   workdir: str | Path = ".", poll_s: float = 3.0,
-                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = (),
+                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = (), cluster: bool = False,
                   detail_s: float = 30.0) -> int:
     """Run Snakemake in a subprocess, its output to ``log_path``; print progress (cases done/total, ETA).
 
@@ -352,36 +352,65 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
     excitation's timesteps, energy decay and time left (:func:`bodysweep.workflow.progress.running_progress`).
 
     ``pass_fds``: file descriptors Snakemake inherits (the study's run lock). Returns Snakemake's exit code.
+    Snakemake runs in a session of its own; a stop signal (SIGINT, SIGTERM, SIGHUP) ends that session
+    (:func:`bodysweep.workflow.interrupt.stop_run`; ``cluster``: the executor submits to SLURM) and raises
+    :class:`~bodysweep.workflow.interrupt.RunInterrupted` carrying the stop report.
     """
+    from .interrupt import PARENT_ENV, RunInterrupted, stop_run, stop_signals_raise
+
     log_path.parent.mkdir(parents=True, exist_ok=True)
     todo = [e for e in entries if not (layout.case_dir(e["case_id"]) / "metrics.json").exists()]
     total, start = len(todo), time.monotonic()
     echo(f"running {total} of {len(entries)} cases (log: {log_path})")
+    since = log_path.stat().st_size if log_path.exists() else 0
+    with open(log_path, "ab") as log, stop_signals_raise():
+        proc = None
+        try:
+            proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
+                                    pass_fds=tuple(pass_fds), start_new_session=True,
+                                    env={**os.environ, PARENT_ENV: str(os.getpid())})
+            return _follow(proc, layout, todo, total, start, echo, poll_s, detail_s)
+        except RunInterrupted as exc:
+            import signal as _signal
+
+            from .interrupt import STOP_SIGNALS
+
+            # a second Ctrl-C must not cut the stop short
+            old = {s: _signal.signal(s, _signal.SIG_IGN) for s in STOP_SIGNALS}
+            try:
+                if proc is not None:
+                    exc.report = stop_run(proc, exc.signum, cluster=cluster, log_path=log_path, log_since=since)
+            finally:
+                for s, h in old.items():
+                    _signal.signal(s, h)
+            raise
+
+
+def _follow(proc, layout: StudyLayout, todo: list[dict], total: int, start: float, echo, poll_s: float,
+            detail_s: float = 30.0) -> int:
+    """Print progress until Snakemake ends; its exit code."""
     last = None
     last_detail = time.monotonic()
-    with open(log_path, "ab") as log:
-        proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
-                                pass_fds=tuple(pass_fds))
-        while True:
-            rc = proc.poll()
-            done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
-            if total and done != last:
-                el = time.monotonic() - start
-                eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
-                echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
-                last = done
-            if rc is None and time.monotonic() - last_detail >= detail_s:  # within-case progress
-                last_detail = time.monotonic()
-                detail = running_progress(layout, todo)
-                for line in detail:
-                    echo(line)
-                if detail:
-                    with open(log_path.parent / "progress.log", "a") as plog:
-                        stamp = time.strftime("%Y-%m-%dT%H:%M:%S")
-                        plog.write("".join(f"{stamp} {ln.strip()}\n" for ln in detail))
-            if rc is not None:
-                return rc
-            time.sleep(poll_s)
+    while True:
+        rc = proc.poll()
+        done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
+        if total and done != last:
+            el = time.monotonic() - start
+            eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
+            echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
+            last = done
+        if rc is None and time.monotonic() - last_detail >= detail_s:  # within-case progress
+            last_detail = time.monotonic()
+            detail = running_progress(layout, todo)
+            for line in detail:
+                echo(line)
+            if detail:
+                with open(layout.logs_dir / "progress.log", "a") as plog:
+                    stamp = time.strftime("%Y-%m-%dT%H:%M:%S")
+                    plog.write("".join(f"{stamp} {ln.strip()}\n" for ln in detail))
+        if rc is not None:
+            return rc
+        time.sleep(poll_s)
 
 
 # -- the Snakefile's view ----------------------------------------------------------------------------------

@@ -54,9 +54,11 @@ class OpenEMSBackend:
     name = "openEMS"
 
     def mesh(self, model: "SceneModel", settings: "SolverSettings") -> "MeshPlan":
-        from .mesh import auto_mesh
+        from .mesh import auto_mesh, check_mesh
 
-        return auto_mesh(model, settings)
+        plan = auto_mesh(model, settings)
+        check_mesh(plan, model, settings)  # a mesh the solve step would refuse is refused here already
+        return plan
 
     def estimate(self, plan: "MeshPlan", model: "SceneModel", settings: "SolverSettings") -> "CostEstimate":
         from .cost import estimate
