@@ -34,6 +34,7 @@ class ElementBuild:
     feed_stop: Vec3
     feed_axis: str
     hints: tuple[MeshHint, ...] = ()
+    materials: tuple[Dielectric, ...] = ()  # dielectrics the element brings (a planar antenna's board)
 
 
 def _hint_lines(axis: str, values, reason: str) -> list[MeshHint]:
@@ -274,8 +275,10 @@ class Loop:
                 "bridge_height_m": self.bridge_height_m, "conductor": self.conductor}
 
 
-Element = Dipole | Loop
-ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop}
+from .planar import PLANAR_TYPES, InvertedF, MeanderLine, Spiral  # noqa: E402  (planar builds ElementBuild)
+
+Element = Dipole | Loop | InvertedF | MeanderLine | Spiral
+ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop, **PLANAR_TYPES}
 
 
 def _element_from(d: Mapping, part: str) -> Element:
@@ -379,12 +382,12 @@ class ExternalAntenna:
         t = self.casing_thickness_m
         offset = np.array([self.position_m[0], self.position_m[1], self.standoff_m + t - lo[2]])
         prims, port, hints = _place(eb, offset, "external", 1, self.impedance_ohm)
-        mats: tuple = ()
+        mats: tuple = eb.materials
         if t > 0:
             lo, hi = _bounds_of(prims)
             prims = prims + (Box("external_casing", CASING_MATERIAL, tuple((lo - t).tolist()),
                                  tuple((hi + t).tolist()), priority=PRIORITY_ENCAPSULATION),)
-            mats = (self.casing,)
+            mats = mats + (self.casing,)
         return PlacedAntenna(prims, port, tuple(offset.tolist()), hints, mats)  # type: ignore[arg-type]
 
     def to_dict(self) -> dict:
@@ -515,10 +518,10 @@ class ImplantAntenna:
     def build(self) -> PlacedAntenna:
         eb = self.element.build("implant")
         prims, port, hints = _place(eb, self.centre, "implant", 2, self.impedance_ohm)
-        mats: tuple = ()
+        mats: tuple = eb.materials
         if self.capsule is not None:
             prims = prims + (self.capsule.primitive(self.centre),)
-            mats = (self.capsule.material,)
+            mats = mats + (self.capsule.material,)
         return PlacedAntenna(prims, port, self.centre, hints, mats)
 
     def to_dict(self) -> dict:
