@@ -281,10 +281,13 @@ Element = Dipole | Loop | InvertedF | MeanderLine | Spiral
 ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop, **PLANAR_TYPES}
 
 
-def _element_from(d: Mapping, part: str) -> Element:
+EXTERNAL_TYPES = ("dipole", "loop")  # planar boards are implant antennas
+
+
+def _element_from(d: Mapping, part: str, allowed=tuple(ELEMENT_TYPES)) -> Element:
     kind = d.get("type")
-    if kind not in ELEMENT_TYPES:
-        raise ValueError(f"{part}: type must be one of {sorted(ELEMENT_TYPES)}, got {kind!r}")
+    if kind not in allowed:
+        raise ValueError(f"{part}: type must be one of {sorted(allowed)}, got {kind!r}")
     return construct(ELEMENT_TYPES[kind], d, f"{part} {kind}")
 
 
@@ -408,7 +411,7 @@ class ExternalAntenna:
                 raise ValueError(f"external antenna casing: needs thickness_m, got {casing!r}")
             place["casing_thickness_m"] = casing.pop("thickness_m")
             place["casing"] = _dielectric_from(casing, CASING_MATERIAL, "external antenna casing")
-        return cls(_element_from(d, "external antenna"), **place)
+        return cls(_element_from(d, "external antenna", EXTERNAL_TYPES), **place)
 
 
 @dataclass(frozen=True)
