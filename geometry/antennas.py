@@ -17,24 +17,12 @@ from typing import Mapping
 
 import numpy as np
 
-from .model import MeshHint
+from .model import ElementBuild, MeshHint
 from .primitives import (PRIORITY_CONDUCTOR, PRIORITY_ENCAPSULATION, AXES, Box, Cylinder, Polygon, Port,
                          Primitive, Vec3, Wire, axis_index)
 from .shapes import PLANE_FRAMES, plane2xyz, strip_outline, translate, xyz2polygon_points
 from .specs import choice, construct, number, positive, vector
 from .tissues import Dielectric
-
-
-@dataclass(frozen=True)
-class ElementBuild:
-    """An element built around the origin: conductors, feed-gap ends, port axis, and mesh hints."""
-
-    primitives: tuple[Primitive, ...]
-    feed_start: Vec3
-    feed_stop: Vec3
-    feed_axis: str
-    hints: tuple[MeshHint, ...] = ()
-    materials: tuple[Dielectric, ...] = ()  # dielectrics the element brings (a planar antenna's board)
 
 
 def _hint_lines(axis: str, values, reason: str) -> list[MeshHint]:
@@ -275,7 +263,7 @@ class Loop:
                 "bridge_height_m": self.bridge_height_m, "conductor": self.conductor}
 
 
-from .planar import PLANAR_TYPES, InvertedF, MeanderLine, Spiral  # noqa: E402  (planar builds ElementBuild)
+from .planar import PLANAR_TYPES, InvertedF, MeanderLine, Spiral  # noqa: E402
 
 Element = Dipole | Loop | InvertedF | MeanderLine | Spiral
 ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop, **PLANAR_TYPES}

@@ -20,7 +20,7 @@ from typing import Mapping
 
 import numpy as np
 
-from .model import MeshHint
+from .model import ElementBuild, MeshHint
 from .primitives import PRIORITY_CONDUCTOR, PRIORITY_ENCAPSULATION, Box, Polygon, Primitive, Wire
 from .shapes import strip_outline
 from .specs import choice, positive, vector
@@ -123,8 +123,6 @@ class _Board:
         return (float(s[0]), float(s[1])), (float(f[0]), float(f[1]))
 
     def build(self, name: str):
-        from .antennas import ElementBuild
-
         h = self.substrate.thickness_m
         bx, by = self.board_size_m
         tr = self._trace()
