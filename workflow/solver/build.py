@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from bodysweep.geometry.model import SceneModel
-from bodysweep.geometry.primitives import AXES, Box, Cylinder, Polygon, Wire
+from bodysweep.geometry.primitives import AXES, Box, Cylinder, Polygon, Polyhedron, Wire
 
 from . import engine
 
@@ -99,7 +99,13 @@ def _add_primitive(prop, prim, priority: int) -> None:
             prop.AddLinPoly(pts, n, float(prim.elevation), float(prim.thickness), priority=priority)
         else:
             prop.AddPolygon(pts, n, float(prim.elevation), priority=priority)
-    else:  # pragma: no cover - SceneModel only holds the four kinds
+    elif isinstance(prim, Polyhedron):
+        solid = prop.AddPolyhedron(priority=priority)
+        for q in prim.vertices:
+            solid.AddVertex(*map(float, q))
+        for f in prim.faces:
+            solid.AddFace([int(k) for k in f])
+    else:  # pragma: no cover - SceneModel only holds the five kinds
         raise ValueError(f"primitive {getattr(prim, 'name', prim)!r}: unsupported kind {type(prim).__name__}")
 
 

@@ -346,6 +346,16 @@ def _baseline_checks(raw: dict, blocks: tuple[Block, ...]) -> None:
                              ", ".join(dict.fromkeys(str(t) for t in taken)))
 
 
+def _absolute_cad_files(raw: dict, folder: Path) -> None:
+    """Make the ``file`` of every CAD part absolute, a relative one read from ``folder`` (the study's)."""
+    scene = raw.get("scene") or {}
+    for part in ("external", "implant"):
+        d = scene.get(part)
+        if isinstance(d, dict) and d.get("type") == "cad" and isinstance(d.get("file"), str):
+            p = Path(d["file"]).expanduser()
+            d["file"] = str(p if p.is_absolute() else (folder / p).resolve())
+
+
 def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None = None) -> Study:
     """Parse (safely), validate and resolve a study.
 
@@ -383,6 +393,8 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
     check_finite(data)
     validate_study_data(data)
     raw = _fill_defaults(data)
+    _absolute_cad_files(raw, Path(origin).parent if isinstance(source, (str, Path)) and origin == str(source)
+                        else Path.cwd())
     name = raw["study"]
     if name in (".", "..") or "/" in name or "\\" in name:  # the schema pattern already refuses these
         raise StudyError("study", "not a plain folder name", name, "letters, digits, '-' and '_'")
