@@ -111,6 +111,10 @@ def load_mesh(file: str, unit: str) -> tuple[np.ndarray, np.ndarray, str]:
     defect = check_closed(v, f)
     if defect:
         raise ValueError(f"{where}: {defect}")
+    tri = v[f]
+    volume = float(np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])).sum()) / 6.0
+    if volume < 0:  # faces listed clockwise seen from outside: turn them so that normals point out
+        f = f[:, [0, 2, 1]]
     v = v * UNITS[unit]
     size = float(np.ptp(v, axis=0).max())
     if size > MAX_PART_M:
