@@ -17,14 +17,15 @@ from bodysweep.workflow.study import expand, load_study  # noqa: E402
 
 
 def _study(name: str, file: str, unit: str = "mm") -> dict:
-    cad = {"type": "cad", "file": file, "unit": unit, "feed_axis": "x", "feed_start_mm": [-1, -1, 0],
+    """The base scene's external and the option ``stl`` are separate mappings (no YAML alias between them)."""
+    cad = lambda: {"type": "cad", "file": file, "unit": unit, "feed_axis": "x", "feed_start_mm": [-1, -1, 0],
            "feed_stop_mm": [1, 1, 0], "standoff_mm": 8}
     dipole = {"type": "dipole", "length_mm": 50, "feed_gap_mm": 2, "axis": "x", "strip_width_mm": 2, "standoff_mm": 8}
     return {"study": name, "frequencies_MHz": [2450],
             "scene": {"phantom": {"type": "layered_slab", "size_x_mm": 70, "size_y_mm": 40,
-                                  "layers": [{"tissue": "muscle", "thickness_mm": 20}]}, "external": cad},
+                                  "layers": [{"tissue": "muscle", "thickness_mm": 20}]}, "external": cad()},
             "solver": {"preset": "draft"}, "sar": {"masses_g": [1, 10]},
-            "sweep": {"parameters": {"ext": {"path": "scene.external", "options": {"stl": cad, "strip": dipole}}},
+            "sweep": {"parameters": {"ext": {"path": "scene.external", "options": {"stl": cad(), "strip": dipole}}},
                       "blocks": [{"list": [{"ext": "stl"}, {"ext": "strip"}]}]}}
 
 
@@ -64,3 +65,35 @@ def test_relative_file_and_content_hash_in_identity(tmp_path, monkeypatch):
     strip_label = next(k for k in before if "strip" in k)
     assert after[stl_label] != before[stl_label]  # the case using the file reruns
     assert after[strip_label] == before[strip_label]  # the other case keeps its id
+
+
+def test_moving_the_study_folder_keeps_the_ids(tmp_path):
+    """The identity holds the file's hash, not its path: a copied study folder gives the same case ids."""
+    ids = []
+    data = Path(write_stl(tmp_path / "part.stl", strip_dipole_mm(50, 2, 2, 1))).read_bytes()
+    for folder in ("a", "b"):
+        sub = tmp_path / folder
+        sub.mkdir()
+        (sub / "part.stl").write_bytes(data)  # the same bytes (numpy-stl writes the file name into the header)
+        (sub / "s.yaml").write_text(yaml.safe_dump(_study("cad_ids", "part.stl")))
+        cases = expand(load_study(sub / "s.yaml"))
+        ids.append(sorted(c.case_id for c in cases))
+        assert any(c.scene["external"].get("file") == str(sub / "part.stl") for c in cases)  # case.json keeps the path
+    assert ids[0] == ids[1]
+
+
+def test_rotation_is_sweepable(tmp_path):
+    write_stl(tmp_path / "part.stl", strip_dipole_mm(50, 2, 2, 1))
+    d = _study("cad_rot", "part.stl")
+    d["sweep"] = {"parameters": {"turn": "scene.external.rotation_deg.2"}, "blocks": [{"list": [{"turn": 0}, {"turn": 90}]}]}
+    d["scene"]["external"]["rotation_deg"] = [0, 0, 0]
+    d["scene"]["external"].update(feed_axis="x", feed_start_mm=[-1, 0, 0], feed_stop_mm=[1, 0, 0])
+    path = tmp_path / "s.yaml"
+    path.write_text(yaml.safe_dump(d))
+    with pytest.raises(Exception, match="feed_axis x"):  # a quarter turn about z sends the x gap along y
+        expand(load_study(path))
+    d["sweep"]["blocks"] = [{"list": [{"turn": 0}, {"turn": 180}]}]
+    path.write_text(yaml.safe_dump(d))
+    cases = expand(load_study(path))
+    assert len({c.case_id for c in cases}) == 2
+    assert [c.scene["external"]["rotation_deg"][2] for c in cases] == [0.0, 180.0]

@@ -17,7 +17,7 @@ from .expressions import evaluate
 from .identity import CASE_ID_LENGTH, _normalise, canonical_json, code_versions
 from .paths import has_path, parent_exists, path2parts, set_path
 from .schema import CaseSceneChecker
-from .study import Study, base_value, declared_solver_key
+from .study import Study, absolute_cad_files, base_value, declared_solver_key, study_folder
 
 
 _PLAIN = (str, int, float, bool, type(None))
@@ -114,9 +114,24 @@ def solver_identity(solver: dict) -> dict:
     return {k: v for k, v in solver.items() if k not in RUN_ONLY_SOLVER_KEYS}
 
 
+def scene_identity(scene: dict) -> dict:
+    """The scene as it enters the case identity: a CAD part by its content hash, not by where its file lies.
+
+    Scenes without CAD parts are returned unchanged (the same object).
+    """
+    parts = [k for k in ("external", "implant") if isinstance(scene.get(k), dict) and scene[k].get("type") == "cad"
+             and scene[k].get("sha256")]
+    if not parts:
+        return scene
+    out = dict(scene)
+    for k in parts:
+        out[k] = {n: v for n, v in scene[k].items() if n != "file"}
+    return out
+
+
 def identity_content(scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite_ports, versions: dict) -> dict:
     """The mapping whose canonical JSON hash is the case id."""
-    return {"scene": scene, "frequency_Hz": frequency_Hz, "solver": solver_identity(solver), "sar": sar,
+    return {"scene": scene_identity(scene), "frequency_Hz": frequency_Hz, "solver": solver_identity(solver), "sar": sar,
             "excite_ports": list(excite_ports), "versions": versions}
 
 
@@ -281,6 +296,7 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     scene_resolve = _resolver(Scene.from_dict) if check_scene else None
     solver_resolve = _resolver(settings_from_dict)
     versions = code_versions()
+    folder = study_folder(study)
     sar = sar2si(study.raw["sar"])
     excite = tuple(study.excite_ports)
     names = tuple(n for b in study.blocks for n in b.names)
@@ -299,6 +315,7 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             items = [(n, v, study.parameters[n].unit) for n, v in zip(names, row)]
             label = case_label(f_MHz, items)
             doc, parameters = _apply(study, names, row, f_MHz, label)
+            absolute_cad_files(doc["scene"], folder)  # a sweep option may bring its own relative file
             memo.check_edge_values(doc, f"in case {label}")
             if varies and check_scene:
                 checker.check(doc["scene"], f"in case {label}")
