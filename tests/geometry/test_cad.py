@@ -145,3 +145,19 @@ def test_scene_with_cad_external_builds_and_round_trips(tmp_path):
     port = m.ports[0]
     assert math.isclose(port.stop[0] - port.start[0], 0.002, abs_tol=1e-12)
     assert math.isclose(port.start[2], 0.0105, abs_tol=1e-12)  # centre of the 1 mm thick strip at 10 mm standoff
+
+
+def test_implant_part_in_capsule_and_outside_capsule(tmp_path):
+    f = write_stl(tmp_path / "small.stl", strip_dipole_mm(10, 1, 1, 0.5))
+    part = {"type": "cad", "file": f, "unit": "mm", "feed_start_m": [-0.0005, -0.0005, 0.0],
+            "feed_stop_m": [0.0005, 0.0005, 0.0], "feed_axis": "x", "depth_m": 0.01}
+    scene = {"phantom": {"type": "layered_slab", "size_x_m": 0.06, "size_y_m": 0.06,
+                         "layers": [{"tissue": "muscle", "thickness_m": 0.03}]},
+             "external": {"type": "dipole", "length_m": 0.05, "feed_gap_m": 0.002, "standoff_m": 0.005},
+             "implant": dict(part, capsule={"shape": "box", "size_m": [0.012, 0.004, 0.004], "eps_r": 3.0})}
+    m = Scene.from_dict(scene).build(403e6)
+    lo, hi = next(p for p in m.primitives if isinstance(p, Polyhedron)).bounds()
+    assert np.allclose(lo, [-0.005, -0.0005, -0.01025]) and np.allclose(hi, [0.005, 0.0005, -0.00975])  # analytic
+    scene["implant"]["capsule"]["size_m"] = [0.008, 0.004, 0.004]  # shorter than the 10 mm part
+    with pytest.raises(ValueError, match="does not fit in its box capsule"):
+        Scene.from_dict(scene)

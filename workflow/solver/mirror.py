@@ -86,9 +86,14 @@ def _signature(prim) -> tuple:
     elif isinstance(prim, Wire):
         pts = [tuple(p) for p in prim.points]
         geo = ("wire", tuple(min(pts, pts[::-1])), float(prim.radius))
-    elif isinstance(prim, Polyhedron):  # same solid when the triangles coincide as sets of corner points
-        tris = sorted(tuple(sorted(tuple(prim.vertices[k]) for k in f)) for f in prim.faces)
-        geo = ("polyhedron", tuple(tris))
+    elif isinstance(prim, Polyhedron):
+        # the same corner points, surface area and volume: a triangulation may differ between a part and
+        # its image (a face's diagonal flips) while the solid is the same, so triangles are not compared
+        v = np.asarray(prim.vertices, dtype=float)
+        tri = v[np.asarray(prim.faces)]
+        area = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1).sum()
+        vol = abs(np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])).sum()) / 6.0
+        geo = ("polyhedron", tuple(sorted(map(tuple, v.tolist()))), float(np.sqrt(area)), float(np.cbrt(vol)))  # lengths
     else:
         pts = [tuple(p) for p in prim.points]
         geo = ("polygon", prim.normal, float(prim.elevation), float(prim.thickness), tuple(sorted(pts)))
