@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import functools
 import hashlib
+import io
 import math
 import struct
 from dataclasses import dataclass
@@ -41,13 +42,14 @@ def _mm(v) -> str:
 
 @functools.lru_cache(maxsize=32)
 def _read(path: str, mtime_ns: int, size: int) -> tuple[np.ndarray, np.ndarray, str]:
-    """Vertices (k, 3) in file units, faces (m, 3) and sha256 of one STL file (cached per path, mtime, size)."""
+    """Checked vertices (k, 3) in file units, outward faces (m, 3) and sha256 of one STL file (cached per path,
+    modification time and size; read-only arrays)."""
     from stl import mesh as stl_mesh
 
     data = Path(path).read_bytes()
     digest = hashlib.sha256(data).hexdigest()
     try:
-        tris = np.asarray(stl_mesh.Mesh.from_file(path).vectors, dtype=float)  # (m, 3, 3)
+        tris = np.asarray(stl_mesh.Mesh.from_file(path, fh=io.BytesIO(data)).vectors, dtype=float)  # the hashed bytes
     except (ValueError, AssertionError, RuntimeError, struct.error, IndexError, TypeError, UnicodeDecodeError) as e:
         raise ValueError(f"not a readable STL file ({str(e).splitlines()[0] if str(e) else type(e).__name__})") \
             from None
@@ -60,6 +62,15 @@ def _read(path: str, mtime_ns: int, size: int) -> tuple[np.ndarray, np.ndarray, 
     _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
     vertices = tris.reshape(-1, 3)[first]
     faces = inverse.reshape(-1, 3)
+    defect = check_closed(vertices, faces)
+    if defect:
+        raise ValueError(defect)
+    tri = vertices[faces]
+    volume = float(np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])).sum()) / 6.0
+    if volume < 0:  # faces listed clockwise seen from outside: turn them so that normals point out
+        faces = faces[:, [0, 2, 1]]
+    vertices.flags.writeable = False  # shared by every caller through the cache
+    faces.flags.writeable = False
     return vertices, faces, digest
 
 
@@ -108,13 +119,6 @@ def load_mesh(file: str, unit: str) -> tuple[np.ndarray, np.ndarray, str]:
         v, f, digest = _read(str(p.resolve()), st.st_mtime_ns, st.st_size)
     except ValueError as e:
         raise ValueError(f"{where}: {e}") from None
-    defect = check_closed(v, f)
-    if defect:
-        raise ValueError(f"{where}: {defect}")
-    tri = v[f]
-    volume = float(np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])).sum()) / 6.0
-    if volume < 0:  # faces listed clockwise seen from outside: turn them so that normals point out
-        f = f[:, [0, 2, 1]]
     v = v * UNITS[unit]
     size = float(np.ptp(v, axis=0).max())
     if size > MAX_PART_M:
