@@ -257,7 +257,7 @@ def cmd_plan(a) -> int:
     changed = sum(r["note"].startswith("changed") for r in rows)
     todo = [r for r in rows if r["state"] == "to solve"]
     cpus = [r["cpu_s"] for r in todo if r["cpu_s"] == r["cpu_s"]]
-    cpu = sum(cpus) if cpus else float("nan")
+    cpu = sum(cpus) if cpus else (0.0 if not todo else float("nan"))
     mem = max([r["memory_B"] for r in todo if r["memory_B"] == r["memory_B"]] or [float("nan")])
     cells = sum(r["cells"] for r in todo if r["cells"] == r["cells"])
     disks = [r.get("disk_B", float("nan")) for r in todo]

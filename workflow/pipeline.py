@@ -344,6 +344,9 @@ def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results
     # outputs of jobs killed with their run: every file is renamed into place complete, so an output
     # Snakemake still marks incomplete is whole but possibly stale; redo its job instead of stopping
     args += ["--rerun-incomplete"]
+    # no Snakemake directory lock: runs of one study exclude each other with the study's run lock, and
+    # runs of different studies needing the same solve meet at that solve folder's lock (.store)
+    args += ["--nolock"]
     if dry_run:
         args += ["--dry-run", "--quiet", "rules"]
     args += list(extra)

@@ -17,7 +17,7 @@ import time
 import traceback
 from pathlib import Path
 
-from .atomic import atomic_path, write_json
+from .atomic import atomic_path, json_text, write_if_changed, write_json
 from .layout import StudyLayout
 
 FAILED = "failed"
@@ -64,8 +64,15 @@ def build_scene(case_dir: str | Path) -> dict:
     On a geometry error ``scene.json`` holds ``{"status": "failed", "reason": ...}`` and the preview
     shows the reason. Returns what was written to ``scene.json``.
     """
+    from .store import solve_lock
+
     case_dir = Path(case_dir)
     case = _inputs(case_dir)
+    with solve_lock(case_dir):  # not while a solve job of another study's run works in this folder
+        return _build_scene_locked(case_dir, case)
+
+
+def _build_scene_locked(case_dir: Path, case: dict) -> dict:
     try:
         from bodysweep.geometry.scene import Scene
 
@@ -105,7 +112,8 @@ def solve(case_dir: str | Path, port: int, threads: int = 1) -> dict:
         kept = kept_outcome(case_dir, port)
         if kept is not None:
             print(f"excitation of port {port} already solved in {case_dir}: taken as it is")
-            write_json(case_dir / f"excite_{int(port)}" / "status.json", kept)
+            # same content keeps the file and its modification time (finished cases stay finished)
+            write_if_changed(case_dir / f"excite_{int(port)}" / "status.json", json_text(kept))
             return kept
         out = _solve_unlocked(case_dir, port, threads)
         keep_outcome(case_dir, port, out)
@@ -117,6 +125,8 @@ def _solve_unlocked(case_dir: Path, port: int, threads: int) -> dict:
     scene = None
     try:
         scene = _read(case_dir / "scene.json")
+    except FileNotFoundError:  # removed meanwhile by another study's scene job: the solver builds it itself
+        scene = None
     except (OSError, ValueError) as exc:
         scene = {"status": FAILED, "reason": f"scene.json unreadable: {_one_line(exc)}"}
     if _failed(scene):
@@ -154,9 +164,12 @@ def finish(case_dir: str | Path, ports: list[int], solve_dir: str | Path | None 
     solve_dir = Path(solve_dir) if solve_dir is not None else case_dir
     case = _read(case_dir / "case.json")
     base = {"case_id": case.get("case_id"), "frequency_Hz": case.get("frequency_Hz")}
+    from .store import kept_outcome
+
     for p in ports:
         try:
-            st = _read(solve_dir / f"excite_{int(p)}" / "status.json")
+            # a status another study's rerun of the job removed a moment ago is still kept as the outcome
+            st = kept_outcome(solve_dir, p) or _read(solve_dir / f"excite_{int(p)}" / "status.json")
         except (OSError, ValueError) as exc:
             st = {"status": FAILED, "reason": f"excite_{p}/status.json unreadable: {_one_line(exc)}"}
         if _failed(st):

@@ -287,6 +287,8 @@ def finish_case(case_dir, solve_dir=None) -> dict:
     statuses = {}
     for p in exc_ports:
         sp = solve_dir / f"excite_{p}" / "status.json"
+        if not sp.exists():  # removed a moment ago by another study's rerun of the solve job: the kept copy
+            sp = solve_dir / f"excite_{p}" / "outcome.json"
         statuses[p] = _read_json(sp) if sp.exists() else {"status": "failed", "reason": f"excite_{p}/status.json missing"}
     runtime = sum(float(s.get("runtime_s") or 0.0) for s in statuses.values())
     bad = [p for p, s in statuses.items() if s.get("status") != "ok"]
