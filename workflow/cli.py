@@ -341,6 +341,9 @@ def _run_locked(a, lock, log: Path) -> int:
     n_failed_before = sum(s == "failed" for s, _ in states)
     if n_failed_before:
         print(f"{n_failed_before} cases failed in an earlier run and are kept as failed (--retry-failed reruns them)")
+    n_solve, n_finish = (sum(s == k for s, _ in states) for k in ("to solve", "to finish"))
+    if n_finish:
+        print(f"{n_solve} cases to solve, {n_finish} to finish from solves already in the store {prep.store}")
     from .cluster import site_resource_args
     from .pipeline import resolve_profile
 
@@ -452,7 +455,8 @@ def cmd_preview(a) -> int:
         raise StudyUnusable(f"case {a.case!r} is not in study {study.name!r}: give a case id, a label or an "
                             f"index 0..{len(dicts) - 1} (see `bodysweep plan`)")
     case = pick[0]
-    out = Path(a.output) if a.output else layout.case_dir(case["case_id"]) / "preview.png"
+    stored = _store(a) / case["solve_id"] / "preview.png"  # the scene step's preview, once the case ran
+    out = Path(a.output) if a.output else (stored if stored.exists() else layout.case_dir(case["case_id"]) / "preview.png")
     if out.exists() and not a.output:
         print(out)
         return EXIT_OK
