@@ -69,7 +69,8 @@ def test_sar_limit_change_solves_nothing_and_finishes_every_case(ran):
     assert set(s["limit_source_10g_4W_per_kg"]) == {"edited too"}
     # the fields are the stored ones: peak SAR per watt is the same number, the allowed power follows the
     # new limit exactly (allowed input = limit / peak SAR per W, IEC/IEEE 62704-1 normalisation)
-    np.testing.assert_allclose(s["allowed_input_W_10g_4W_per_kg"], 4.0 / s["peak_SAR_10g_W_per_kg_per_W"], rtol=1e-12)
+    np.testing.assert_allclose(s["sar_limited_accepted_W_10g_4W_per_kg"], 4.0 / s["peak_SAR_10g_W_per_kg_per_W"],
+                               rtol=1e-12)
     _run(work, study)  # back to the original limits: the earlier case folders are still done
     assert scheduled_jobs(study, workdir=work) == {}
 
@@ -115,11 +116,18 @@ def test_band_points_are_taken_from_the_stored_signals(ran):
     counts = _run(work, other)
     assert counts.get("solve", 0) == 0 and counts.get("finish") == 2, counts
     for cid_a, cid_b in zip(_summary(work, "tiny")["case_id"], _summary(work, "tiny_band")["case_id"]):
-        a = skrf.Network(str(work / "results" / "tiny" / "cases" / cid_a / "sparams.s2p"))
-        b = skrf.Network(str(work / "results" / "tiny_band" / "cases" / cid_b / "sparams.s2p"))
+        a = skrf.Network(str(work / "results" / "tiny" / "cases" / cid_a / "sparams.s1p"))  # only port 1 excited
+        b = skrf.Network(str(work / "results" / "tiny_band" / "cases" / cid_b / "sparams.s1p"))  # only port 1 excited
         assert len(a.f) == 11 and len(b.f) == 21
         np.testing.assert_allclose(b.f[::2], a.f, rtol=1e-12)
         np.testing.assert_allclose(b.s[::2], a.s, rtol=1e-9, atol=1e-12)
+        # S21 over the band (result.h5, read with h5py) likewise
+        import h5py
+
+        with h5py.File(work / "results" / "tiny" / "cases" / cid_a / "result.h5", "r") as ha, \
+                h5py.File(work / "results" / "tiny_band" / "cases" / cid_b / "result.h5", "r") as hb:
+            sa, sb = ha["sparams/S"][()], hb["sparams/S"][()]
+        np.testing.assert_allclose(sb[::2, 1, 0], sa[:, 1, 0], rtol=1e-9, atol=1e-15)
 
 
 def test_solve_step_takes_a_finished_solve_instead_of_solving_again(ran):
