@@ -329,7 +329,7 @@ def _run_locked(a, lock, log: Path) -> int:
               f"Snakemake lock files and {cleared['temporaries']} leftover temporary files")
     from .interrupt import settle_incomplete
 
-    settled = settle_incomplete(lock.layout, ".")
+    settled = settle_incomplete(lock.layout, ".", (_store(a),))
     if settled:
         print(f"kept {len(settled)} outputs that an interrupted run finished (not redone)")
     prep = prepare(a.study, a.results_dir, _store(a))
@@ -348,7 +348,7 @@ def _run_locked(a, lock, log: Path) -> int:
     from .pipeline import resolve_profile
 
     site = site_resource_args(resolve_profile(a.profile), a.partition, a.account)
-    args = snakemake_args(a.study, results_dir=a.results_dir, store=prep.store.resolve(), workdir=".", cores=a.cores, jobs=a.jobs,
+    args = snakemake_args(a.study, results_dir=a.results_dir, store=prep.store, workdir=".", cores=a.cores, jobs=a.jobs,
                           threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
     lock_fds = (lock.fd,)  # Snakemake holds the study lock too (runlock module docstring)
     from .interrupt import RunInterrupted, profile_submits
@@ -395,7 +395,7 @@ def _interrupted(a, exc, lock, prep, log: Path) -> int:
 
     for line in (exc.report.lines() if exc.report else [f"interrupted ({exc})"]):
         print(line)
-    print(after_stop(lock.layout, prep.entries, ".") + f"; `bodysweep run {a.study}` continues with the rest "
+    print(after_stop(lock.layout, prep.entries, ".", prep.store) + f"; `bodysweep run {a.study}` continues with the rest "
           f"(log: {log})")
     _err(f"interrupted by {exc.report.signal_name if exc.report else exc}; stopped the run")
     return EXIT_INTERRUPTED
