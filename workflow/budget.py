@@ -102,7 +102,7 @@ def disk_problem(rows: list[dict], budget_GB: float, source: str) -> str | None:
 
     The need is what the cases to run keep plus the largest scratch of one of them.
     """
-    todo = [r for r in rows if r.get("state") in ("to run", "changed")]
+    todo = [r for r in rows if r.get("state") in ("to solve", "to finish")]  # an upper bound for "to finish"
     kept = [r.get("disk_B", float("nan")) for r in todo]
     kept = [v for v in kept if v == v]
     scratch = [v for v in (r.get("scratch_B", float("nan")) for r in todo) if v == v]
