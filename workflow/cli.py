@@ -22,6 +22,8 @@ import os
 import sys
 from pathlib import Path
 
+from .budget import budget_problems, fmt_bytes, fmt_cpu, machine_memory_GB, study_cpu_budget_hours
+
 EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET, EXIT_BUSY, EXIT_INTERRUPTED = 0, 1, 2, 3, 4, 5, 6
 
 
@@ -98,21 +100,6 @@ def _check_geometry(dicts: list[dict]) -> int:
 
 
 # -- cost ------------------------------------------------------------------------------------------------
-def _fmt_bytes(b: float) -> str:
-    if b != b:
-        return "-"
-    for unit, f in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
-        if b >= f:
-            return f"{b / f:.1f} {unit}"
-    return f"{b:.0f} B"
-
-
-def _fmt_cpu(s: float) -> str:
-    from .pipeline import format_duration
-
-    return "-" if s != s else format_duration(s)
-
-
 def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
     """One row per case: state and, for cases still to solve, the mesh and cost estimate.
 
@@ -151,40 +138,6 @@ def remember_costs(layout, rows: list[dict]) -> None:
     cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
-def study_cpu_budget_hours(study, given: float | None) -> float:
-    """The CPU-time budget: the command line's, else the study file's ``budget.max_cpu_hours``, else 24 h."""
-    if given is not None:
-        return float(given)
-    try:
-        v = study.budget.get("max_cpu_hours")
-    except (AttributeError, KeyError, TypeError):
-        v = None
-    return float(v) if v else 24.0
-
-
-def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float,
-                    disk: tuple[float, str] | None = None) -> list[str]:
-    """Why the cases to run are over budget (empty: within). ``disk``: ``(budget GB, where it comes from)``."""
-    todo = [r for r in rows if r["state"] == "to solve"]  # a finish step costs no FDTD time
-    cpu = sum(r.get("cpu_s", 0.0) for r in todo if r.get("cpu_s", 0.0) == r.get("cpu_s", 0.0))
-    out = []
-    if cpu > max_cpu_hours * 3600.0:
-        out.append(f"estimated CPU time {cpu / 3600.0:.3g} h for {len(todo)} cases is over the budget of "
-                   f"{max_cpu_hours:g} h (--max-cpu-hours)")
-    big = [r for r in todo if r.get("memory_B", 0.0) == r.get("memory_B", 0.0) and r.get("memory_B", 0.0) > max_memory_GB * 1e9]
-    if big:
-        worst = max(big, key=lambda r: r["memory_B"])
-        out.append(f"{len(big)} cases need more memory than {max_memory_GB:g} GB (--max-memory-GB), the largest "
-                   f"{_fmt_bytes(worst['memory_B'])} ({worst['case_id']}, {worst['cells']:.0f} cells)")
-    if disk is not None:
-        from .budget import disk_problem
-
-        p = disk_problem(rows, *disk)
-        if p:
-            out.append(p)
-    return out
-
-
 def _refuse_over_budget(problems: list[str]) -> int:
     """One error line naming every figure over its budget; exit code 4."""
     _err("over budget: " + "; ".join(problems) + "; give --accept-cost to run anyway, or raise the budget")
@@ -196,13 +149,6 @@ def _study_budget_problems(study, rows, a) -> list[str]:
 
     return budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB,
                            disk_budget_GB(study, a.max_disk_GB, a.results_dir))
-
-
-def _machine_memory_GB() -> float:
-    try:
-        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 1e9
-    except (ValueError, OSError, AttributeError):
-        return 8.0
 
 
 # -- subcommands -----------------------------------------------------------------------------------------
@@ -252,7 +198,7 @@ def cmd_plan(a) -> int:
         print(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<9} "
               f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
               f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
-              f"{(_fmt_bytes(r['memory_B']) if has else '-'):>9} {(_fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
+              f"{(fmt_bytes(r['memory_B']) if has else '-'):>9} {(fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
     counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to solve", "to finish", "failed")}
     changed = sum(r["note"].startswith("changed") for r in rows)
     todo = [r for r in rows if r["state"] == "to solve"]
@@ -264,8 +210,8 @@ def cmd_plan(a) -> int:
     disk = sum(v for v in disks if v == v) if any(v == v for v in disks) else float("nan")
     print(f"total: {len(rows)} cases: " + ", ".join(f"{n} {s}" for s, n in counts.items())
           + (f" ({changed} changed since the last plan)" if changed else "")
-          + f"; to solve: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}, "
-          + f"disk {_fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
+          + f"; to solve: {cells:.0f} cells, CPU time {fmt_cpu(cpu)}, largest memory {fmt_bytes(mem)}, "
+          + f"disk {fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
     problems = _study_budget_problems(study, rows, a)
     if problems and not a.accept_cost:
         return _refuse_over_budget(problems)
@@ -501,9 +447,9 @@ def cmd_solves(a) -> int:
         size = solves.folder_bytes(root / i)
         total += size
         users = refs.get(i, [])
-        print(f"{i}  {_fmt_bytes(size):>9}  " + (f"used by {len(users)} studies: {', '.join(Path(u).name for u in users[:4])}"
+        print(f"{i}  {fmt_bytes(size):>9}  " + (f"used by {len(users)} studies: {', '.join(Path(u).name for u in users[:4])}"
                                                   if users else "unused"))
-    print(f"store {root}: {len(ids)} solves ({_fmt_bytes(total)}), {len(unused)} used by no study")
+    print(f"store {root}: {len(ids)} solves ({fmt_bytes(total)}), {len(unused)} used by no study")
     if not a.remove_unused:
         if unused:
             print("give --remove-unused to remove the unused ones")
@@ -543,7 +489,7 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--max-cpu-hours", type=float, default=None,
                        help="refuse when the estimated CPU time of the cases to run exceeds this "
                             "(default: the study's budget.max_cpu_hours, else 24 h)")
-        p.add_argument("--max-memory-GB", type=float, default=round(0.8 * _machine_memory_GB(), 1),
+        p.add_argument("--max-memory-GB", type=float, default=round(0.8 * machine_memory_GB(), 1),
                        help="refuse when a case needs more memory than this (default 80%% of this machine's)")
         p.add_argument("--max-disk-GB", type=float, default=None,
                        help="refuse when the estimated disk use of the cases to run exceeds this (default: the "
