@@ -81,15 +81,13 @@ def n_startup(spec: SearchSpec) -> int:
 
 def make_sampler(spec: SearchSpec, round_index: int):
     """The round's sampler: TPE (multivariate, grouped for conditional parameters, constant liar for
-    batches, constraints from the told excesses) or uniform random sampling."""
+    batches; it reads the constraint values set on each told trial) or uniform random sampling."""
     optuna = _optuna()
     seed = round_seed(spec.seed, round_index)
     if spec.optimiser == "random":
         return optuna.samplers.RandomSampler(seed=seed)
-    n_con = len(spec.constraints)
-    constraints = (lambda t: t.user_attrs.get("excess", [0.0] * n_con)) if n_con else None
     return optuna.samplers.TPESampler(seed=seed, n_startup_trials=n_startup(spec), multivariate=True, group=True,
-                                      constant_liar=True, constraints_func=constraints)
+                                      constant_liar=True)
 
 
 def _tidy(v: float) -> float:
@@ -244,7 +242,6 @@ class SearchDriver:
             points = [t.user_attrs["point"] for t in pending]
             self.echo(f"round {r + 1}: {len(points)} points: " + "; ".join(_fmt_point(p) for p in points))
             outcomes = evaluator.evaluate(points, self.all_points())
-            self.study.sampler = make_sampler(self.spec, r)  # its after_trial records the constraints
             for t, o in zip(pending, outcomes):
                 _attr(self.study, t, "case_ids", list(o.case_ids))
                 if o.reason:
@@ -253,6 +250,9 @@ class SearchDriver:
                     self.study.tell(t.number, state=optuna.trial.TrialState.FAIL)
                 else:
                     _attr(self.study, t, "excess", [float(x) for x in o.excess])
+                    live = optuna.trial.Trial(self.study, t._trial_id)
+                    for i, x in enumerate(o.excess):  # <= 0: met; the sampler prefers points meeting all
+                        live.set_constraint(f"c{i}", float(x))
                     self.study.tell(t.number, float(o.value))
             best = self.best_by_round()[-1]
             self.echo(f"round {r + 1} told: best {self.spec.merit_column} so far "
