@@ -32,6 +32,13 @@ EXPLORE = {"parameters": {"rods": {"path": "scene.concentrators", "options": {"n
            "budget_cases": 6, "batch": 2, "seed": 3}
 
 
+def test_list_item_path_inside_an_option_is_searched():
+    ex = dict(EXPLORE, parameters=dict(EXPLORE["parameters"],
+                                       height={"path": "scene.concentrators.0.offset_mm.2", "range": [3, 9]}))
+    spec = _spec(_study(ex))
+    assert spec.by_name("height").parent == "rods"
+
+
 def test_section_is_parsed_with_defaults_and_conditional_parent():
     spec = _spec(_study(EXPLORE))
     assert [p.name for p in spec.parameters] == ["rods", "rod_len", "depth"]  # choices first

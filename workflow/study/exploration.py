@@ -125,7 +125,7 @@ def _range_parameter(name: str, spec: dict, where: str, base: dict, choices: dic
     if not low < high:
         raise StudyError(join_path(where, "range"), "empty range: low must be below high", spec["range"],
                          "[low, high] with low < high")
-    key = path2parts(path)[-1]
+    key = path.rsplit(".", 1)[-1]  # a list item (offset_mm.2) is checked like a swept one: by its index text
     for v in (low, high):
         try:
             check_edge_values({key: v})
