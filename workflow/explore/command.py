@@ -59,17 +59,10 @@ def mesh_check_name(name: str) -> str:
 
 
 def cmd_explore(a) -> int:
-    from ..cli import StudyUnusable, _err
-    from ..study.errors import StudyError
-    from ..study import load_study
+    from ..cli import StudyUnusable, _err, _expand
     from ..study.exploration import parse_search
 
-    if not Path(a.study).is_file():
-        raise StudyUnusable(f"{a.study}: no such study file")
-    try:
-        study = load_study(a.study)
-    except StudyError as exc:
-        raise StudyUnusable(f"{a.study}: {exc}") from None
+    study = _expand(a.study, a.results_dir)[0]  # the study and its own cases, as `run` checks them
     spec = parse_search(study.raw, study.parameters, set(study.swept_names()), {d.path for d in study.derived},
                         len(study.frequencies_Hz), study.n_cases // max(1, len(study.frequencies_Hz)))
     if spec is None:
