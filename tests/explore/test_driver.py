@@ -57,7 +57,16 @@ def test_rounds_spend_the_budget_and_conditional_parameter_follows_its_option(tm
     d = SearchDriver(spec, tmp_path / "a", echo=lambda s: None)
     ev = Analytic()
     assert d.run(ev).startswith("budget spent")
-    assert d.n_run_points() == 12 and all(len(r) <= 3 for r in d.rounds())
+    by = {t.number: t for t in d.trials()}
+    assert d.n_run_points() == 12
+    assert all(sum(not by[n].user_attrs.get("refused") and "repeat_of" not in by[n].user_attrs for n in r) <= 3
+               for r in d.rounds())
+    # repeats of a point already run are told its value, never evaluated again
+    run_points = [json.dumps(p, sort_keys=True) for call in ev.calls for p in call]
+    assert len(run_points) == len(set(run_points)) == 12
+    for t in d.trials():
+        if "repeat_of" in t.user_attrs and t.state.name == "COMPLETE":
+            assert t.value == by[t.user_attrs["repeat_of"]].value
     for r in proposals(d):
         for p in r:
             assert ("rod_len" in p) == (p["rods"] == "pair")  # define-by-run: only with rods
@@ -128,3 +137,27 @@ def test_constraints_exclude_points_from_the_best(tmp_path):
     assert all(t.user_attrs["point"]["depth"] >= 12 for t in feas)
     assert best == max(feasible_value(t) for t in feas)
     assert best <= -(12 - 9) ** 2 + 3  # analytic: the constrained optimum is at depth 12
+
+
+def test_a_choice_only_search_runs_each_option_once_and_tells_repeats(tmp_path):
+    d = yaml.safe_load((GOOD / "minimal.yaml").read_text())
+    opts = {"none": [], "near": [dict(ROD, offset_mm=[0, 0, 4])], "far": [dict(ROD, offset_mm=[0, 0, 7])]}
+    d["explore"] = {"parameters": {"rods": {"path": "scene.concentrators", "options": opts}},
+                    "budget_cases": 3, "batch": 1, "seed": 2}
+    s = load_study(d)
+    spec = parse_search(s.raw, s.parameters, set(), set(), 1, 1)
+    values = {"none": 0.0, "near": 2.0, "far": 1.0}  # analytic stand-in
+
+    class Table(Analytic):
+        def refuse(self, p):
+            return None
+
+        def evaluate(self, points, all_points):
+            self.calls.append(points)
+            return [Outcome(values[p["rods"]]) for p in points]
+
+    ev = Table()
+    drv = SearchDriver(spec, tmp_path / "s", echo=lambda m: None)
+    assert drv.run(ev).startswith("budget spent")
+    assert sorted(p["rods"] for call in ev.calls for p in call) == ["far", "near", "none"]
+    assert drv.best_by_round()[-1] == 2.0

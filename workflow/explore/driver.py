@@ -31,8 +31,10 @@ from ..study.exploration import SearchSpec
 #: the budget to the model (measured with benchmarks/search_efficiency.py)
 STARTUP_FRACTION = 0.25
 STARTUP_MAX = 8
-#: a search stops after this many proposals per point of the budget (refused geometries count here)
-MAX_PROPOSALS_PER_POINT = 3
+#: a search stops after this many proposals per point of the budget (refused and repeated ones count here)
+MAX_PROPOSALS_PER_POINT = 10
+#: a round asks at most this many times its batch (repeats of points already run are told, not run)
+MAX_ASKS_PER_ROUND = 10
 
 
 @dataclass
@@ -163,7 +165,8 @@ class SearchDriver:
     def n_run_points(self) -> int:
         """Points of the budget used: listed trials that were not refused before running."""
         by_num = {t.number: t for t in self.trials()}
-        return sum(1 for n in self._listed() if not by_num[n].user_attrs.get("refused"))
+        return sum(1 for n in self._listed()
+                   if not by_num[n].user_attrs.get("refused") and "repeat_of" not in by_num[n].user_attrs)
 
     def best_by_round(self) -> list[float | None]:
         """Best feasible figure of merit after each round (``None`` before any)."""
@@ -190,24 +193,54 @@ class SearchDriver:
         return None
 
     # -- the rounds --------------------------------------------------------------------------------------
+    def _known(self) -> dict[str, object]:
+        """Point (canonical JSON) -> the first listed trial that ran it (not refused, not a repeat)."""
+        by_num = {t.number: t for t in self.trials()}
+        out: dict[str, object] = {}
+        for n in sorted(self._listed()):
+            t = by_num[n]
+            if not t.user_attrs.get("refused") and "repeat_of" not in t.user_attrs:
+                out.setdefault(point_key(t.user_attrs["point"]), t)
+        return out
+
     def ask_round(self, evaluator: Evaluator) -> list:
+        """Ask up to ``batch`` new points. A proposal equal to a point already run is told that point's
+        result at once (it costs no case and no budget); one equal to a point still running or to a
+        proposal of this round is told failed as a repeat. At most ``MAX_ASKS_PER_ROUND x batch`` asks."""
         optuna = _optuna()
         r = len(self.rounds())
         self.study.sampler = make_sampler(self.spec, r)
         n = min(self.spec.batch, self.spec.max_points - self.n_run_points())
-        nums = []
-        for _ in range(n):
+        known = self._known()
+        nums, fresh, asks = [], 0, 0
+        while fresh < n and asks < MAX_ASKS_PER_ROUND * n:
+            asks += 1
             trial = self.study.ask()
             point = suggest_point(trial, self.spec)
             trial.set_user_attr("point", point)
             trial.set_user_attr("round", r)
+            nums.append(trial.number)
+            same = known.get(point_key(point))
+            if same is not None:
+                trial.set_user_attr("repeat_of", same.number)
+                if same.state == optuna.trial.TrialState.COMPLETE:
+                    trial.set_user_attr("excess", same.user_attrs.get("excess", []))
+                    for key, x in (same.constraints or {}).items():
+                        trial.set_constraint(key, x)
+                    self.study.tell(trial, same.value)
+                else:
+                    trial.set_user_attr("reason", f"repeat of trial {same.number} ({same.state.name.lower()})")
+                    self.study.tell(trial, state=optuna.trial.TrialState.FAIL)
+                continue
             why = evaluator.refuse(point)
             if why:
                 trial.set_user_attr("refused", True)
                 trial.set_user_attr("reason", why)
                 self.study.tell(trial, state=optuna.trial.TrialState.FAIL)
                 self.echo(f"  refused before any solve: {_fmt_point(point)}: {why}")
-            nums.append(trial.number)
+                continue
+            known[point_key(point)] = next(t for t in reversed(self.trials()) if t.number == trial.number)
+            fresh += 1
         write_json(self.rounds_file, {"rounds": self.rounds() + [nums]})
         return [t for t in self.trials() if t.number in nums and t.state == optuna.trial.TrialState.RUNNING]
 
@@ -219,7 +252,8 @@ class SearchDriver:
 
     def all_points(self) -> list[dict]:
         by_num = {t.number: t for t in self.trials()}
-        return [by_num[n].user_attrs["point"] for n in sorted(self._listed()) if not by_num[n].user_attrs.get("refused")]
+        return [by_num[n].user_attrs["point"] for n in sorted(self._listed())
+                if not by_num[n].user_attrs.get("refused") and "repeat_of" not in by_num[n].user_attrs]
 
     def run(self, evaluator: Evaluator) -> str:
         """Rounds until a stop rule holds; returns the stop reason. Raises SearchStopped from the evaluator."""
@@ -271,6 +305,10 @@ def feasible_value(t) -> float | None:
     if any(x > 0 for x in t.user_attrs.get("excess", [])):
         return None
     return float(t.value)
+
+
+def point_key(point: dict) -> str:
+    return json.dumps(point, sort_keys=True)
 
 
 def _fmt_point(point: dict) -> str:

@@ -35,10 +35,11 @@ def trials_frame(driver: SearchDriver) -> pd.DataFrame:
     rows, cases = [], 0
     for n in sorted(listed):
         t = by_num[n]
-        refused = bool(t.user_attrs.get("refused"))
-        if not refused and t.state.name in ("COMPLETE", "FAIL"):
+        refused, repeat = bool(t.user_attrs.get("refused")), "repeat_of" in t.user_attrs
+        if not refused and not repeat and t.state.name in ("COMPLETE", "FAIL"):
             cases += driver.spec.cases_per_point
-        rows.append({"trial": n, "round": listed[n] + 1, "state": "refused" if refused else t.state.name.lower(),
+        state = "refused" if refused else "repeat" if repeat else t.state.name.lower()
+        rows.append({"trial": n, "round": listed[n] + 1, "state": state, "repeat_of": t.user_attrs.get("repeat_of"),
                      "value": t.value if t.state.name == "COMPLETE" else math.nan,
                      "feasible_value": feasible_value(t), "reason": t.user_attrs.get("reason", ""),
                      "cases_run": cases, **t.user_attrs.get("point", {})})
@@ -65,7 +66,7 @@ def _codes(df: pd.DataFrame, spec) -> dict[str, tuple[np.ndarray, list[str] | No
 def plot_progress(df: pd.DataFrame, spec, path: Path) -> Path:
     plt = _plt()
     fig, ax = plt.subplots(figsize=(6.4, 3.8))
-    ran = df[df["state"] != "refused"]
+    ran = df[~df["state"].isin(("refused", "repeat"))]
     ok = ran[ran["feasible_value"].notna()]
     ax.plot(ok["cases_run"], ok["feasible_value"], "o", color="0.5", ms=4, label="point (feasible)")
     best = ok["feasible_value"].cummax() if spec.maximise else ok["feasible_value"].cummin()
@@ -199,8 +200,10 @@ def write_search_report(driver: SearchDriver, check: dict | None, folder: Path, 
              f"Figure of merit: {'maximise' if spec.maximise else 'minimise'} `{spec.merit_column}` (worst of a point's "
              f"{spec.cases_per_point} case(s)); optimiser `{spec.optimiser}`, seed {spec.seed}, batch {spec.batch}, "
              f"budget {spec.budget_cases} cases.", ""]
-    ran = df[df["state"] != "refused"] if len(df) else df
-    lines.append(f"Points proposed: {len(df)}; run: {len(ran)}; refused before any solve: {len(df) - len(ran)}; "
+    ran = df[~df["state"].isin(("refused", "repeat"))] if len(df) else df
+    n_rep = int((df["state"] == "repeat").sum()) if len(df) else 0
+    lines.append(f"Points proposed: {len(df)}; run: {len(ran)}; repeats of a point already run (told its result, "
+                 f"no case): {n_rep}; refused before any solve: {len(df) - len(ran) - n_rep}; "
                  f"failed or constraint not met: {int(ran['feasible_value'].isna().sum()) if len(ran) else 0}.")
     lines += ["", "All figures are simulation estimates on the study's mesh; see the mesh check below before "
               "trusting a ranking.", "", "![progress](progress.png)", ""]
