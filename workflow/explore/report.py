@@ -193,9 +193,10 @@ def write_search_report(driver: SearchDriver, check: dict | None, folder: Path, 
     spec = driver.spec
     df = trials_frame(driver)
     write_text(folder / "proposals.csv", df.to_csv(index=False))
+    once = df[df["state"] != "repeat"] if len(df) else df  # each point once in the views of the space
     figs = {"progress": plot_progress(df, spec, folder / "progress.png"),
-            "pairs": plot_pairs(df, spec, folder / "proposals.png"),
-            "sensitivity": plot_sensitivity(df, spec, folder / "sensitivity.png")}
+            "pairs": plot_pairs(once, spec, folder / "proposals.png"),
+            "sensitivity": plot_sensitivity(once, spec, folder / "sensitivity.png")}
     lines = [f"# Guided search of study {study_name}", "",
              f"Figure of merit: {'maximise' if spec.maximise else 'minimise'} `{spec.merit_column}` (worst of a point's "
              f"{spec.cases_per_point} case(s)); optimiser `{spec.optimiser}`, seed {spec.seed}, batch {spec.batch}, "
@@ -213,7 +214,7 @@ def write_search_report(driver: SearchDriver, check: dict | None, folder: Path, 
               "options (choices), over the feasible points run; larger means more influential. A one-at-a-time "
               "view, not a variance decomposition.", "", f"| parameter | spread ({spec.merit_column}) | points |",
               "|---|---|---|"]
-    lines += [f"| {n} | {_fmt(s, '.3g')} | {k} |" for n, s, k in sensitivity(df, spec)]
+    lines += [f"| {n} | {_fmt(s, '.3g')} | {k} |" for n, s, k in sensitivity(once, spec)]
     if figs["sensitivity"]:
         lines += ["", "![sensitivity](sensitivity.png)"]
     lines += ["", "## Mesh check of the best points", ""]
