@@ -147,7 +147,7 @@ def real_grid(results_dir: Path) -> dict:
             key = ("none",)
         else:
             key = ("pair",) + tuple(round(float(r[paths[n]]), 6) for n in GRID)
-        table[key] = float(r["delivered_dBm"])
+        table[key] = float(r["implant_power_tx_matched_dBm"])
     return table
 
 

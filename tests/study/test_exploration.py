@@ -45,7 +45,7 @@ def test_section_is_parsed_with_defaults_and_conditional_parent():
     rod_len = spec.by_name("rod_len")
     assert rod_len.parent == "rods" and rod_len.parent_options == ("pair",)
     assert spec.by_name("depth").parent is None and spec.by_name("depth").step == 2
-    assert spec.merit_column == "delivered_dBm" and spec.maximise  # documented default
+    assert spec.merit_column == "figure_of_merit_value" and spec.maximise  # documented default
     assert spec.max_points == 6 and spec.mesh_best == 3
     assert [p.name for p in spec.active({"rods": "none", "depth": 8})] == ["rods", "depth"]
 

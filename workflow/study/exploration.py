@@ -21,6 +21,8 @@ from .sweeps import RESERVED_NAMES, Parameter, path2unit
 
 SECTION = "explore"
 GOALS = ("maximise", "minimise")
+#: the study's own ranking column (its figure_of_merit: power reaching the implant at the SAR limit)
+DEFAULT_MERIT = "figure_of_merit_value"
 
 
 @dataclass(frozen=True)
@@ -90,26 +92,37 @@ def summary_number_columns(raw: dict) -> dict[str, str]:
 
     Mirrors :func:`bodysweep.workflow.collect.collect_frames` (column names per averaging mass and per limit).
     """
-    cols = {c: "" for c in ("S11_dB", "S21_dB", "allowed_input_W", "allowed_input_dBm", "delivered_W",
-                            "delivered_dBm", "runtime_s", "cells", "timesteps")}
+    from ..collect import IMPLANT_VARIANTS
+
     two = "excite: [1, 2]"
     excite = raw.get("excite") or [1]
     ports = raw.get("solver", {}).get("excite_ports") or excite
-    for c in ("S22_dB", "matched_link_efficiency_dB"):
-        cols[c] = "" if 2 in ports else two
+    need2 = "" if 2 in ports else two
+    cols = {c: "" for c in ("figure_of_merit_value", "S11_dB", "S21_dB", "Zin1_re_ohm", "Zin1_im_ohm",
+                            "mismatch_loss_port1_dB", "sar_limited_accepted_W", "sar_limited_accepted_dBm")}
+    for c in ("S22_dB", "Zin2_re_ohm", "Zin2_im_ohm", "mismatch_loss_port2_dB", "rollett_K", "max_available_gain_dB"):
+        cols[c] = need2
+    for v in IMPLANT_VARIANTS:
+        for u in ("W", "dBm"):
+            cols[f"implant_power_{v}_{u}"] = need2 if v == "both_matched" else ""
     for m in raw["sar"]["masses_g"]:
         cols[f"peak_SAR_{_mass_tag(m)}_W_per_kg_per_W"] = ""
     for lim in raw["sar"]["limits"]:
         tag = f"{_mass_tag(lim['mass_g'])}_{float(lim['limit_W_per_kg']):g}W_per_kg"
-        for c in ("allowed_input_W", "allowed_input_dBm", "delivered_W", "delivered_dBm"):
+        for c in ("sar_limited_accepted_W", "sar_limited_accepted_dBm"):
             cols[f"{c}_{tag}"] = ""
+    cols.update({c: "" for c in ("runtime_s", "cells", "timesteps")})
     return cols
 
 
 def _column(raw: dict, col: str, where: str) -> str:
     cols = summary_number_columns(raw)
     if col not in cols:
-        raise StudyError(where, "not a numeric column of the summary table", col, ", ".join(cols))
+        import difflib
+
+        near = difflib.get_close_matches(col, list(cols), n=3, cutoff=0.5)
+        allowed = ("nearest: " + ", ".join(near)) if near else ", ".join(list(cols)[:8]) + f", ... ({len(cols)} columns)"
+        raise StudyError(where, "not a numeric column of the summary table", col, allowed)
     if cols[col]:
         raise StudyError(where, f"{col} is only computed with {cols[col]}", col,
                          ", ".join(c for c, need in cols.items() if not need))
@@ -220,7 +233,7 @@ def parse_search(raw: dict, sweep_params: dict[str, Parameter], swept: set[str],
             ranges.append((name, spec))
     numeric = [_range_parameter(n, s, join_path(SECTION, "parameters", n), base, choices) for n, s in ranges]
     merit = sec.get("merit", {})
-    column = _column(raw, merit.get("column", "delivered_dBm"), join_path(SECTION, "merit", "column"))
+    column = _column(raw, merit.get("column", DEFAULT_MERIT), join_path(SECTION, "merit", "column"))
     constraints = []
     for i, c in enumerate(sec.get("constraints", [])):
         where = join_path(SECTION, "constraints", i)
