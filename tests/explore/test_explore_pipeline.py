@@ -22,6 +22,9 @@ from bodysweep.workflow.explore.driver import Outcome, SearchDriver
 from bodysweep.workflow.study import load_study
 from bodysweep.workflow.study.exploration import parse_search
 
+sys.path.insert(0, str(Path(__file__).parent.parent / "pipeline"))
+from helpers_reliability import kill_group  # noqa: E402  (also ends Snakemake's own session)
+
 pytestmark = [pytest.mark.pipeline, pytest.mark.solver, pytest.mark.timeout(900)]
 TINY = Path(__file__).parent.parent / "pipeline" / "data" / "tiny.yaml"
 
@@ -60,8 +63,7 @@ def test_explore_two_rounds_killed_and_resumed(tmp_path):
         assert time.monotonic() - t0 < 600, "round 2 never started"
         time.sleep(0.5)
     time.sleep(3)
-    os.killpg(os.getpgid(proc.pid), signal.SIGKILL)
-    proc.wait(timeout=30)
+    kill_group(proc)
     before = _finished(root)
     assert len(before) >= 2  # round 1's two cases
 
