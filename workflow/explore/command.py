@@ -18,7 +18,7 @@ from ..atomic import write_json
 
 EXIT_OK, EXIT_STUDY, EXIT_BUSY = 0, 2, 5
 #: options passed on to every ``bodysweep run`` of the search
-RUN_OPTIONS = ("cores", "jobs", "threads_per_job", "profile", "partition", "account", "max_cpu_hours",
+RUN_OPTIONS = ("solve_store", "cores", "jobs", "threads_per_job", "profile", "partition", "account", "max_cpu_hours",
                "max_memory_GB", "max_disk_GB")
 
 
