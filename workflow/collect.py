@@ -24,12 +24,14 @@ import pandas as pd
 
 from .atomic import atomic_path
 from .layout import StudyLayout, read_plan
+from .post.flags import warnings_text
 
 TABLE_NAMES = ("summary", "sparams", "sar")
 
 #: columns every summary row has, in this order (parameter and per-limit columns are added)
 SUMMARY_FIXED = ("case_id", "label", "status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB")
-SUMMARY_TAIL = ("matched_link_efficiency_dB", "runtime_s", "cells", "timesteps", "decay_reached")
+SUMMARY_TAIL = ("matched_link_efficiency_dB", "runtime_s", "cells", "timesteps", "decay_reached", "energy_balance",
+                "warnings")
 SPARAMS_FIXED = ("case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg")
 SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "x_mm", "y_mm", "z_mm")
 
@@ -240,6 +242,8 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         row["timesteps"] = _num(m.get("timesteps"))
         dr = m.get("decay_reached")
         row["decay_reached"] = bool(dr) if isinstance(dr, bool) else None
+        row["energy_balance"] = _num(m.get("energy_balance"))
+        row["warnings"] = warnings_text([w for w in m.get("warnings") or [] if isinstance(w, dict)])
         summary_rows.append(row)
 
         # S-parameters: the band from the Touchstone file, else the case frequency from metrics.json

@@ -15,4 +15,5 @@ No module here imports openEMS or reads solver files; the solver adapter feeds a
 """
 
 # Part of every case identity: bump when a change here alters any result.
-POST_VERSION = "2"  # 2: a cube face within rounding of a mesh line lies on it (whole-cell cubes flush with the surface)
+POST_VERSION = "3"  # 2: a cube face within rounding of a mesh line lies on it (whole-cell cubes flush with the surface)
+# 3: metrics.json carries the peak cube side, the energy balance and per-case warnings

@@ -245,7 +245,7 @@ def finish_case(case_dir) -> dict:
     import h5py
 
     from bodysweep.workflow.atomic import atomic_path, write_json
-    from bodysweep.workflow.post.sar_average import average_sar
+    from bodysweep.workflow.post.sar_average import FACE, average_sar
 
     from .settings import settings_from_dict
 
@@ -306,8 +306,10 @@ def finish_case(case_dir) -> dict:
                             max_air_fraction=float(sar_cfg.get("max_air_fraction", 0.1)))
             peaks[round(m, 9)] = float(r.peak)
             volumes[f"avg_{m * 1e3:g}g"] = r.avg
+            side = _finite_or_none(r.side_m[r.peak_index]) if r.peak_index else None
             sar_rows.append({"mass_kg": m, "peak_W_per_kg_per_W": _finite_or_none(r.peak),
-                             "location_m": [float(v) for v in r.peak_location_m], "peak_status": int(r.peak_status)})
+                             "location_m": [float(v) for v in r.peak_location_m], "peak_status": int(r.peak_status),
+                             "cube_side_m": side, "face_cube": int(r.peak_status) == FACE})
         metrics["accepted_power_port1_W"] = p_acc
         metrics["absorbed_fraction_tissue"] = sp["absorbed_tissue_W_per_W"]
         metrics["absorbed_fraction_all"] = sp["absorbed_all_W_per_W"]
@@ -326,6 +328,12 @@ def finish_case(case_dir) -> dict:
     metrics["cells"] = statuses[exc_ports[0]].get("cells")
     metrics["timesteps"] = int(sum(int(s.get("timesteps") or 0) for s in statuses.values()))
     metrics["decay_reached"] = all(bool(s.get("decay_reached")) for s in statuses.values())
+    from bodysweep.workflow.post import flags
+
+    metrics["energy_balance"] = flags.energy_balance(metrics.get("absorbed_fraction_all"), S0[0, 0],
+                                                     S0[1, 0] if n_ports >= 2 else None)
+    bounds = [(float(e[0]), float(e[-1])) for e in edges] if volumes else None
+    metrics["warnings"] = flags.case_warnings(metrics, case.get("scene") or {}, bounds)
 
     versions = _versions()
     scene_file = case_dir / "scene.json"
