@@ -74,6 +74,7 @@ def _check_geometry(dicts: list[dict]) -> int:
     import json
 
     seen: set[str] = set()
+    notes: dict[str, list[str]] = {}  # arrangement warning -> labels of the cases it concerns
     for d in dicts:
         key = json.dumps([d["scene"], d["frequency_Hz"]], sort_keys=True, default=str)
         if key in seen:
@@ -83,6 +84,7 @@ def _check_geometry(dicts: list[dict]) -> int:
             model = _build_model(d)
         except (ValueError, KeyError, TypeError) as exc:
             raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): geometry: {' '.join(str(exc).split())}") from None
+        _note_arrangement(d, notes)
         plane = (d.get("solver") or {}).get("mirror_plane")
         if plane:  # a half-domain solve needs a mirror-symmetric scene: refuse before any job starts
             from .solver.mirror import check_symmetric
@@ -92,7 +94,21 @@ def _check_geometry(dicts: list[dict]) -> int:
             except ValueError as exc:
                 raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): solver.mirror_plane: "
                                     f"{' '.join(str(exc).split())}") from None
+    for text, labels in notes.items():  # arrangements that may be deliberate: one line each, on stderr
+        more = f" and {len(labels) - 2} more" if len(labels) > 2 else ""
+        print(f"warning: {text} (case {', '.join(labels[:2])}{more})", file=sys.stderr)
     return len(seen)
+
+
+def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
+    """Add the scene's arrangement warnings (:mod:`bodysweep.geometry.arrangement`) to ``notes``."""
+    from bodysweep.geometry.arrangement import arrangement_warnings
+    from bodysweep.geometry.scene import Scene
+
+    for text in arrangement_warnings(Scene.from_dict(case["scene"])):
+        labels = notes.setdefault(text, [])
+        if case.get("label", "") not in labels:
+            labels.append(case.get("label", ""))
 
 
 # -- cost ------------------------------------------------------------------------------------------------
