@@ -26,7 +26,7 @@ from .atomic import atomic_path
 from .layout import StudyLayout, read_plan
 from .post.flags import warnings_text
 
-TABLE_NAMES = ("summary", "sparams", "sar")
+TABLE_NAMES = ("summary", "sparams", "sar", "uncertainty")
 
 #: columns every summary row has, in this order (parameter and per-limit columns are added)
 SUMMARY_FIXED = ("case_id", "label", "status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB")
@@ -190,8 +190,13 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     dict of str to DataFrame
         ``{"summary": ..., "sparams": ..., "sar": ...}``.
     """
+    from .collect_uncertainty import add_budget, split_entries
+
+    plan = None
     if entries is None:
-        entries = read_plan(layout)["cases"]
+        plan = read_plan(layout)
+        entries = plan["cases"]
+    entries, budget_runs = split_entries(entries)  # uncertainty component runs: only in the budget
     pcols = parameter_columns(entries, set(SUMMARY_FIXED) | set(SUMMARY_TAIL) | set(SPARAMS_FIXED) | {CASE_FREQUENCY})
     summary_rows: list[dict] = []
     sar_rows: list[dict] = []
@@ -304,7 +309,10 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     else:
         sp = pd.DataFrame(columns=["case_id", CASE_FREQUENCY, *dict.fromkeys(pcols.values()), *SPARAMS_FIXED[1:]])
     sar = pd.DataFrame(sar_rows, columns=list(SAR_COLUMNS))
-    return {"summary": summary, "sparams": sp, "sar": sar}
+    frames = {"summary": summary, "sparams": sp, "sar": sar}
+    if plan is None and layout.plan_file.exists():
+        plan = read_plan(layout)
+    return add_budget(frames, layout, entries, budget_runs, (plan or {}).get("uncertainty"), read_metrics)
 
 
 def arrow_safe(df: pd.DataFrame) -> pd.DataFrame:

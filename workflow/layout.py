@@ -72,7 +72,12 @@ def read_plan(layout: StudyLayout) -> dict:
         raise FileNotFoundError(f"{layout.plan_file} does not exist; run `bodysweep run` (or prepare) first") from None
 
 
-def write_plan(layout: StudyLayout, study_name: str, entries: list[dict]) -> bool:
-    """Write ``plan.json`` if its content changed; True if written."""
-    return write_if_changed(layout.plan_file, json_text({"study": study_name, "plan_version": PLAN_VERSION,
-                                                         "cases": entries}))
+def write_plan(layout: StudyLayout, study_name: str, entries: list[dict], uncertainty: dict | None = None) -> bool:
+    """Write ``plan.json`` if its content changed; True if written.
+
+    ``uncertainty``: the study's uncertainty settings (``plan.json`` key ``uncertainty``, absent without).
+    """
+    doc = {"study": study_name, "plan_version": PLAN_VERSION, "cases": entries}
+    if uncertainty is not None:
+        doc["uncertainty"] = uncertainty
+    return write_if_changed(layout.plan_file, json_text(doc))

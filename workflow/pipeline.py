@@ -63,7 +63,7 @@ def plan_entry(case_dict: dict) -> dict:
     ports = case_dict.get("excite_ports") or (case_dict.get("solver") or {}).get("excite_ports") or [1]
     return {"case_id": case_dict["case_id"], "label": case_dict.get("label", ""),
             "parameters": case_dict.get("parameters", {}), "frequency_Hz": case_dict.get("frequency_Hz"),
-            "ports": [int(p) for p in ports]}
+            "ports": [int(p) for p in ports], **({"budget": case_dict["budget"]} if case_dict.get("budget") else {})}
 
 
 @dataclass
@@ -82,6 +82,9 @@ def expand_study(study_path: str | Path, results_dir: str | Path = "results") ->
     study = load(study_path)
     layout = StudyLayout.of(study.name, results_dir)
     dicts = [c.to_dict() for c in expand_cases(study)]
+    from .study.uncertainty import budget_case_dicts
+
+    dicts += budget_case_dicts(study.raw, dicts, layout)[0]  # the uncertainty budget's component runs
     return study, layout, [plan_entry(d) for d in dicts], dicts
 
 
@@ -106,12 +109,14 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
     written = 0
     for d in dicts:
         written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
-    write_plan(layout, study.name, entries)
+    from .study.uncertainty import budget_settings
+
+    write_plan(layout, study.name, entries, budget_settings(study.raw))
     return Prepared(study, layout, entries, previous, written)
 
 
 #: case.json fields that describe the case but are not part of its identity
-DESCRIPTIVE_KEYS = ("label", "study", "parameters")
+DESCRIPTIVE_KEYS = ("label", "study", "parameters", "budget")
 
 
 def _results_relevant(case: dict) -> dict:

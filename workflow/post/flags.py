@@ -166,7 +166,7 @@ def balance_warning(balance: float | None) -> list[dict]:
     if 0.0 <= balance <= 1.0 + ENERGY_BALANCE_EXCESS:
         return []
     return [{"code": "energy_balance", "balance": balance,
-             "message": f"(absorbed + delivered) / accepted power = {balance:.3g}, outside [0, "
+             "message": f"(absorbed + delivered) / accepted power = {balance:.4g}, outside [0, "
                         f"{1 + ENERGY_BALANCE_EXCESS:g}] (radiation cannot be negative): the accepted power or the "
                         "fields are wrong by at least that much"}]
 
