@@ -288,6 +288,11 @@ def cmd_plan(a) -> int:
     print(f"total: {len(rows)} cases: " + ", ".join(f"{n} {s}" for s, n in counts.items())
           + f"; to run: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}, "
           + f"disk {_fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
+    from .study.uncertainty import budget_note
+
+    note = budget_note(study.raw, entries, layout)
+    if note:
+        print(note)
     problems = _study_budget_problems(study, rows, a)
     if problems and not a.accept_cost:
         return _refuse_over_budget(problems)
@@ -367,6 +372,14 @@ def _run_locked(a, lock, log: Path) -> int:
         marked = mark_unfinished(prep.layout, prep.entries)
         if marked:
             print(f"{len(marked)} cases ended without a result; recorded as failed. Collecting the rest.")
+            rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
+                               pass_fds=lock_fds)
+    if rc == 0:  # an uncertainty budget for the best cases: their runs are known once the cases have results
+        again = prepare(a.study, a.results_dir)
+        added = {e["case_id"] for e in again.entries} - {e["case_id"] for e in prep.entries}
+        if added:
+            print(f"uncertainty budget: {len(added)} component runs for the best cases")
+            prep = again
             rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
                                pass_fds=lock_fds)
     if rc != 0:

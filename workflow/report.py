@@ -296,9 +296,10 @@ def write_report(layout: StudyLayout) -> Path:
     for _, r in summary.iterrows():
         lines.append("| " + " | ".join(
             _fmt(r.get(c), ".2f") if c.endswith(("_dB", "_dBm")) else str(r.get(c, "")) for c in cols) + " |")
-    from .report_checks import warning_lines
+    from .report_checks import budget_lines, warning_lines
 
     lines += warning_lines(summary)
+    lines += budget_lines(layout, summary, None if best is None else str(best["case_id"]))
     if not failed.empty:
         lines += ["", "## Failed cases", ""]
         lines += [f"- `{r['case_id']}` ({r['label']}): {r['status']}: {r['reason']}" for _, r in failed.iterrows()]

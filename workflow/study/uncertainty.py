@@ -174,6 +174,19 @@ def budget_case_dicts(raw: dict, dicts: list[dict], layout=None) -> tuple[list[d
     return list(extra.values()), note
 
 
+def budget_note(raw: dict, entries: list[dict], layout=None) -> str:
+    """One line for ``plan``: which cases have their own component runs and how many runs that is."""
+    cfg = budget_settings(raw)
+    if cfg is None:
+        return ""
+    own = [e["case_id"] for e in entries if not is_budget_run(e)]
+    runs = [e for e in entries if is_budget_run(e)]
+    _, how = selection(cfg, own, layout)
+    comps = [c for c in cfg["components"] if c in RUN_COMPONENTS]
+    return (f"uncertainty budget: component runs ({', '.join(comps)}) for {how}: {len(runs)} runs in the table "
+            "above (labels [<component> run for <case id>]); the other cases get the study-level budget")
+
+
 def budget_map(entries: list[dict]) -> dict[str, dict[str, str]]:
     """``{case id: {component: id of its run}}`` from plan entries (their ``budget`` lists)."""
     out: dict[str, dict[str, str]] = {}
