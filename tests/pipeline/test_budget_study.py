@@ -102,3 +102,9 @@ def test_rerun_free_and_only_the_changed_component_reruns(ran):
     p.write_text(yaml.safe_dump(d, sort_keys=False))
     counts = scheduled_jobs(p, workdir=work)
     assert {r: counts.get(r, 0) for r in ("scene", "solve", "finish")} == {"scene": 2, "solve": 2, "finish": 2}
+
+
+def test_verify_accepts_the_budget_runs(ran, monkeypatch, capsys):
+    work, _ = ran
+    monkeypatch.chdir(work)
+    assert cli.main(["verify", str(STUDY)]) == 0, capsys.readouterr().out
