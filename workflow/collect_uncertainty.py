@@ -120,7 +120,7 @@ def add_budget(frames: dict[str, pd.DataFrame], layout, entries: list[dict], run
         summary["allowed_input_dBm_conservative"] = [
             10 * math.log10(p / 1e-3) if p == p and p > 0 else math.nan for p in summary["allowed_input_W_conservative"]]
         summary["uncertainty_source"] = summary["case_id"].map(lambda c: extra.get(c, {}).get("source", ""))
-        limit = float(cfg.get("mesh_warning_above", 0.1))
+        limit = float(cfg.get("mesh_warning_fraction", 0.1))
         for i, c in enumerate(summary["case_id"]):
             src = extra.get(c, {}).get("source", "")
             whose = "" if src == "own" else f" ({src})"

@@ -8,7 +8,7 @@ from bodysweep.workflow.atomic import json_text
 from bodysweep.workflow.collect import collect_frames
 from bodysweep.workflow.layout import StudyLayout, write_plan
 
-CFG = {"cases": "sample", "count": 1, "seed": 1, "rank_by": "delivered_dBm", "mesh_warning_above": 0.1,
+CFG = {"cases": "sample", "count": 1, "seed": 1, "rank_by": "delivered_dBm", "mesh_warning_fraction": 0.1,
        "components": ["mesh", "boundary", "power_balance"]}
 
 

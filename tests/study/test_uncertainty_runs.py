@@ -80,5 +80,5 @@ def test_bad_section_is_refused_naming_the_key(tmp_path):
     from bodysweep.workflow.study import StudyError
 
     with pytest.raises(StudyError) as info:
-        _cases(tmp_path, {"cases": "all", "mesh_refinement": 1.2})
-    assert "uncertainty.mesh_refinement" in str(info.value)
+        _cases(tmp_path, {"cases": "all", "mesh_refinement_factor": 1.2})
+    assert "uncertainty.mesh_refinement_factor" in str(info.value)

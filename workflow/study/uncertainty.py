@@ -4,14 +4,14 @@ Each component that needs a run is an ordinary case of the pipeline, derived fro
 changing one thing:
 
 ``mesh``
-    ``cells_per_wavelength`` x ``mesh_refinement`` (at least 1.5, IEC/IEEE 62704-1 asks for at least 50 %
+    ``cells_per_wavelength`` x ``mesh_refinement_factor`` (at least 1.5, IEC/IEEE 62704-1 asks for at least 50 %
     more cells per wavelength for a convergence check), ``port_cells`` and ``min_cells_per_layer`` doubled
     (cells at most half as large next to the antennas' conductors and across the tissue layers, where the
     peak SAR lies), ``min_cell_m`` halved when set;
 ``boundary``
     ``air_margin_wavelengths`` + ``boundary_shift_wavelengths`` (the absorbing boundary moved outward);
 ``tissue``
-    eps_r and sigma of every phantom tissue multiplied by ``1 + tissue_change`` (as declared materials of
+    eps_r and sigma of every phantom tissue multiplied by ``1 + tissue_change_fraction`` (as declared materials of
     fixed properties at the case frequency, density unchanged);
 ``end_criterion``
     ``end_criterion_dB`` lowered by ``end_criterion_deeper_dB``.
@@ -89,7 +89,7 @@ def variant(case: dict, component: str, cfg: dict) -> dict:
     scene, solver = copy.deepcopy(case["scene"]), copy.deepcopy(case["solver"])
     f = float(case["frequency_Hz"])
     if component == "mesh":
-        solver["cells_per_wavelength"] = float(solver["cells_per_wavelength"]) * float(cfg["mesh_refinement"])
+        solver["cells_per_wavelength"] = float(solver["cells_per_wavelength"]) * float(cfg["mesh_refinement_factor"])
         solver["port_cells"] = int(solver["port_cells"]) * 2
         solver["min_cells_per_layer"] = int(solver["min_cells_per_layer"]) * 2
         if solver.get("min_cell_m") is not None:
@@ -97,7 +97,7 @@ def variant(case: dict, component: str, cfg: dict) -> dict:
     elif component == "boundary":
         solver["air_margin_wavelengths"] = float(solver["air_margin_wavelengths"]) + float(cfg["boundary_shift_wavelengths"])
     elif component == "tissue":
-        scene = _changed_tissues(scene, f, 1.0 + float(cfg["tissue_change"]))
+        scene = _changed_tissues(scene, f, 1.0 + float(cfg["tissue_change_fraction"]))
     elif component == "end_criterion":
         solver["end_criterion_dB"] = max(_END_CRITERION_FLOOR_DB,
                                          float(solver["end_criterion_dB"]) - float(cfg["end_criterion_deeper_dB"]))
