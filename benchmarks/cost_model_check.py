@@ -104,7 +104,7 @@ def _err(est: float, act: float) -> str:
 
 
 def main(argv=None) -> int:
-    from bodysweep.workflow import cli
+    from bodysweep.workflow.estimate import case_estimate
     from bodysweep.workflow.solver.cost import CALIBRATED_CELLS_PER_S
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -119,7 +119,7 @@ def main(argv=None) -> int:
             work = Path(tmp) / name
             work.mkdir()
             case = case_dict(SIZES[name], work, a.boundary)
-            est = cli.case_cost(case)
+            est = case_estimate(case).as_row()
             case_dir = work / "case"
             case_dir.mkdir()
             (case_dir / "case.json").write_text(json.dumps(case))

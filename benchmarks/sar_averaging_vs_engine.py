@@ -154,7 +154,8 @@ def sub_grid(sar, rho, edges, half_width_m, z_low_m, z_high_m):
 
 def main(argv=None) -> int:
     from bodysweep.workflow.post import sparams
-    from bodysweep.workflow.post.sar_average import average_sar, exact_cube_average_bruteforce
+    from bodysweep.workflow.post.sar_average import average_sar
+    from bodysweep.workflow.reference.sar_bruteforce import exact_cube_average_bruteforce
     from bodysweep.workflow.solver.case import read_excitation, read_raw_fields, sar_per_watt
     from bodysweep.workflow.solver.run import solve_excitation
 

@@ -17,8 +17,8 @@ import tempfile
 
 import numpy as np
 
-from bodysweep.workflow.solver.planewave import (PlaneWaveSetup, plane_wave_mesh, reference_solution, sar_comparison,
-                                                 solve_plane_wave, tissue_layer)
+from bodysweep.workflow.reference.planewave_fdtd import (PlaneWaveSetup, plane_wave_mesh, reference_solution,
+                                                        sar_comparison, solve_plane_wave, tissue_layer)
 
 STACK = (("skin_dry", 0.002), ("fat_not_infiltrated", 0.005), ("muscle", 0.040))
 

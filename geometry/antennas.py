@@ -17,23 +17,12 @@ from typing import Mapping
 
 import numpy as np
 
-from .model import MeshHint
+from .model import ElementBuild, MeshHint
 from .primitives import (PRIORITY_CONDUCTOR, PRIORITY_ENCAPSULATION, AXES, Box, Cylinder, Polygon, Port,
                          Primitive, Vec3, Wire, axis_index)
 from .shapes import PLANE_FRAMES, plane2xyz, strip_outline, translate, xyz2polygon_points
 from .specs import choice, construct, number, positive, vector
 from .tissues import Dielectric
-
-
-@dataclass(frozen=True)
-class ElementBuild:
-    """An element built around the origin: conductors, feed-gap ends, port axis, and mesh hints."""
-
-    primitives: tuple[Primitive, ...]
-    feed_start: Vec3
-    feed_stop: Vec3
-    feed_axis: str
-    hints: tuple[MeshHint, ...] = ()
 
 
 def _hint_lines(axis: str, values, reason: str) -> list[MeshHint]:
@@ -274,14 +263,19 @@ class Loop:
                 "bridge_height_m": self.bridge_height_m, "conductor": self.conductor}
 
 
-Element = Dipole | Loop
-ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop}
+from .planar import PLANAR_TYPES, InvertedF, MeanderLine, Spiral  # noqa: E402
+
+Element = Dipole | Loop | InvertedF | MeanderLine | Spiral
+ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop, **PLANAR_TYPES}
 
 
-def _element_from(d: Mapping, part: str) -> Element:
+EXTERNAL_TYPES = ("dipole", "loop")  # planar boards are implant antennas
+
+
+def _element_from(d: Mapping, part: str, allowed=tuple(ELEMENT_TYPES)) -> Element:
     kind = d.get("type")
-    if kind not in ELEMENT_TYPES:
-        raise ValueError(f"{part}: type must be one of {sorted(ELEMENT_TYPES)}, got {kind!r}")
+    if kind not in allowed:
+        raise ValueError(f"{part}: type must be one of {sorted(allowed)}, got {kind!r}")
     return construct(ELEMENT_TYPES[kind], d, f"{part} {kind}")
 
 
@@ -379,12 +373,12 @@ class ExternalAntenna:
         t = self.casing_thickness_m
         offset = np.array([self.position_m[0], self.position_m[1], self.standoff_m + t - lo[2]])
         prims, port, hints = _place(eb, offset, "external", 1, self.impedance_ohm)
-        mats: tuple = ()
+        mats: tuple = eb.materials
         if t > 0:
             lo, hi = _bounds_of(prims)
             prims = prims + (Box("external_casing", CASING_MATERIAL, tuple((lo - t).tolist()),
                                  tuple((hi + t).tolist()), priority=PRIORITY_ENCAPSULATION),)
-            mats = (self.casing,)
+            mats = mats + (self.casing,)
         return PlacedAntenna(prims, port, tuple(offset.tolist()), hints, mats)  # type: ignore[arg-type]
 
     def to_dict(self) -> dict:
@@ -405,7 +399,7 @@ class ExternalAntenna:
                 raise ValueError(f"external antenna casing: needs thickness_m, got {casing!r}")
             place["casing_thickness_m"] = casing.pop("thickness_m")
             place["casing"] = _dielectric_from(casing, CASING_MATERIAL, "external antenna casing")
-        return cls(_element_from(d, "external antenna"), **place)
+        return cls(_element_from(d, "external antenna", EXTERNAL_TYPES), **place)
 
 
 @dataclass(frozen=True)
@@ -515,10 +509,10 @@ class ImplantAntenna:
     def build(self) -> PlacedAntenna:
         eb = self.element.build("implant")
         prims, port, hints = _place(eb, self.centre, "implant", 2, self.impedance_ohm)
-        mats: tuple = ()
+        mats: tuple = eb.materials
         if self.capsule is not None:
             prims = prims + (self.capsule.primitive(self.centre),)
-            mats = (self.capsule.material,)
+            mats = mats + (self.capsule.material,)
         return PlacedAntenna(prims, port, self.centre, hints, mats)
 
     def to_dict(self) -> dict:

@@ -28,6 +28,18 @@ class MeshHint:
 
 
 @dataclass(frozen=True)
+class ElementBuild:
+    """An element built around the origin: conductors, feed-gap ends, port axis, and mesh hints."""
+
+    primitives: tuple[Primitive, ...]
+    feed_start: Vec3
+    feed_stop: Vec3
+    feed_axis: str
+    hints: tuple[MeshHint, ...] = ()
+    materials: tuple = ()  # Dielectric specs the element brings (a planar antenna's board)
+
+
+@dataclass(frozen=True)
 class SceneModel:
     """Everything a solver needs about the physical arrangement of one case at one frequency.
 

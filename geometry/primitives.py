@@ -15,6 +15,7 @@ Use the constants below so that metal beats dielectric and inner beats outer.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -143,14 +144,31 @@ class Cylinder:
             raise ValueError(f"cylinder {self.name!r}: start and stop coincide; give it a length")
 
     def bounds(self) -> tuple[Vec3, Vec3]:
-        lo = tuple(min(a, b) - self.radius for a, b in zip(self.start, self.stop))
-        hi = tuple(max(a, b) + self.radius for a, b in zip(self.start, self.stop))
+        """Smallest axis-aligned box around the cylinder (flat end discs).
+
+        An end disc of radius ``r`` normal to the unit axis ``u`` reaches ``r sqrt(1 - u_i^2)`` along
+        coordinate ``i`` (analytic): nothing along the cylinder's own axis, ``r`` across it.
+        """
+        d = [b - a for a, b in zip(self.start, self.stop)]
+        norm = math.sqrt(sum(c * c for c in d))
+        reach = [self.radius * math.sqrt(max(0.0, 1.0 - (c / norm) ** 2)) for c in d]
+        lo = tuple(min(a, b) - e for a, b, e in zip(self.start, self.stop, reach))
+        hi = tuple(max(a, b) + e for a, b, e in zip(self.start, self.stop, reach))
         return lo, hi  # type: ignore[return-value]
+
+    def along_axis(self) -> int | None:
+        """0, 1 or 2 when the cylinder's axis runs along x, y or z; None when it is oblique."""
+        along = [i for i in range(3) if self.start[i] != self.stop[i]]
+        return along[0] if len(along) == 1 else None
 
 
 @dataclass(frozen=True)
 class Wire:
-    """Conductor along a polyline through ``points``; ``radius`` 0 means a thin wire on the mesh."""
+    """Conductor along a polyline through ``points``; ``radius`` 0 means a thin wire on the mesh.
+
+    With ``radius`` > 0 the solid is every point within ``radius`` of the polyline (round ends and
+    joints, as the engine's wire primitive fills it), so it reaches ``radius`` past each end point.
+    """
 
     name: str
     material: str

@@ -11,7 +11,6 @@ with the materials evaluated at that frequency.
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass
 from typing import Any, Mapping
 
@@ -22,7 +21,7 @@ from .concentrators import CONCENTRATOR_TYPES, Concentrator, concentrator_from_d
 from .model import SceneModel
 from .phantoms import SHELL_MATERIAL, LayeredCylinder, LiquidBox, NoPhantom, Phantom, phantom_from_dict
 from .primitives import Box, Cylinder, Primitive, Vec3
-from .shapes import distance_to_box, sample_points
+from .shapes import clearance_to_box, sample_points
 from .specs import positive
 from .tissues import MaterialSpec, is_builtin, material_spec_from_dict, resolve_material
 from .units import from_edge_units
@@ -120,8 +119,15 @@ class Scene:
         user = self.user_materials()
         for part, name in self._referenced_materials():
             if name not in user and not is_builtin(name):
+                import difflib
+
+                from .tissues import builtin_tissues
+
+                known = sorted(builtin_tissues())
+                near = difflib.get_close_matches(name, known + sorted(user), n=1)
                 raise ValueError(f"{part}: material {name!r} is neither declared in the scene's materials "
-                                 f"{sorted(user)} nor built in")
+                                 f"{sorted(user)} nor built in" + (f" (did you mean {near[0]}?)" if near else "")
+                                 + f"; built-in tissues: {', '.join(known)}")
         ext = self.external.build()
         lo, _ = ext.bounds()
         if lo[2] < -1e-12:
@@ -139,10 +145,13 @@ class Scene:
             if not inside.all():
                 q = pts[~inside][0]
                 where = "capsule" if self.implant.capsule is not None else "antenna"
+                fits = self._depths_that_fit(pts)
+                room = (f"; at this position depth_m from {fits[0]:.4g} m to {fits[1]:.4g} m fits" if fits else
+                        "; no depth fits at this position")
                 raise ValueError(f"implant outside the phantom: its {where} reaches ({q[0]:.4g}, {q[1]:.4g}, "
-                                 f"{q[2]:.4g}) m at depth_m = {self.implant.depth_m} m, position_m = "
-                                 f"{self.implant.position_m}; keep it inside the "
-                                 f"{'liquid' if isinstance(self.phantom, LiquidBox) else 'tissue'}")
+                                 f"{q[2]:.4g}) m at depth_m = {self.implant.depth_m:.4g} m, position_m = "
+                                 f"({self.implant.position_m[0]:.4g}, {self.implant.position_m[1]:.4g}) m{room}; keep it "
+                                 f"inside the {'liquid' if isinstance(self.phantom, LiquidBox) else 'tissue'}")
             klo, khi = (np.min([p.bounds()[0] for p in keep], 0), np.max([p.bounds()[1] for p in keep], 0))
         anchors = self.anchors()
         for i, c in enumerate(self.concentrators):
@@ -150,13 +159,10 @@ class Scene:
             prims = c.build(anchors, name)
             if self.implant is None:
                 continue
-            dmin = math.inf
-            for p in prims:
-                pts, r = sample_points(p, 1e-4)
-                dmin = min(dmin, float(distance_to_box(pts, klo, khi).min()) - r)
+            dmin = min(clearance_to_box(p, klo, khi, 1e-4) for p in prims)
             if dmin < self.min_clearance_m:
                 raise ValueError(f"{name} is {dmin * 1e3:.3g} mm from the implant; the minimum clearance is "
-                                 f"{self.min_clearance_m * 1e3:.3g} mm (min_clearance_m)")
+                                 f"{self.min_clearance_m * 1e3:.3g} mm (min_clearance_mm)")
         from .arrangement import arrangement_errors
 
         errors = arrangement_errors(self, anchors)
@@ -190,6 +196,21 @@ class Scene:
                           anchors=dict(anchors), body_bounds=ph.body_bounds, hints=tuple(hints))
 
     # ------------------------------------------------------------------ dicts
+    def _depths_that_fit(self, pts: np.ndarray, step_m: float = 1e-4, max_depth_m: float = 0.5):
+        """(shallowest, deepest) implant depth in m at which the points (at the current depth) lie inside the
+        phantom, scanning in ``step_m`` steps; None if none fits. The first connected run of depths is given."""
+        depths = np.arange(step_m, max_depth_m, step_m)
+        ok = np.zeros(depths.size, bool)
+        for k in range(0, depths.size, 500):
+            d = depths[k:k + 500]
+            shifted = pts[None, :, :] + np.stack([np.zeros_like(d), np.zeros_like(d), self.implant.depth_m - d], 1)[:, None, :]
+            ok[k:k + 500] = self.phantom.contains(shifted.reshape(-1, 3)).reshape(d.size, -1).all(1)
+        if not ok.any():
+            return None
+        first = int(np.argmax(ok))
+        last = first + (int(np.argmin(ok[first:])) - 1 if not ok[first:].all() else ok.size - first - 1)
+        return float(depths[first]), float(depths[last])
+
     def to_dict(self) -> dict:
         d: dict[str, Any] = {"phantom": self.phantom.to_dict(), "external": self.external.to_dict()}
         if self.implant is not None:

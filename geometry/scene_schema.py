@@ -118,6 +118,51 @@ LOOP_PROPS = {
     "conductor": CONDUCTOR,
 }
 
+BOARD_LAYER_PROPS = {"thickness_mm": _len("Layer thickness"), **DIELECTRIC_PROPS}
+
+
+def _board_props(kind: str, desc: str) -> dict:
+    return {
+        "type": _typed(kind, desc),
+        "board_size_mm": _vec("Size (x, y) of the substrate and its ground plane, centred on the implant (mm).", 2),
+        "substrate": _obj("Dielectric substrate between the ground plane and the radiator.", BOARD_LAYER_PROPS,
+                          ["thickness_mm", "eps_r"], **NOT_BOTH_LOSSES),
+        "superstrate": _obj("Optional dielectric cover on top of the radiator, board-sized.", BOARD_LAYER_PROPS,
+                            ["thickness_mm", "eps_r"], **NOT_BOTH_LOSSES),
+        "feed_distance_mm": _len("Distance of the feed probe from the trace's start (where the shorting pin "
+                                 "stands), along the first straight run"),
+        "shorting_pin": {"description": "A pin from the trace's start down to the ground plane.", "type": "boolean",
+                         "default": True},
+        "conductor": CONDUCTOR,
+    }
+
+
+INVERTED_F_PROPS = {
+    **_board_props("inverted_f", "Planar inverted-F: rectangular patch over a grounded substrate, shorting pin "
+                                 "on its x-minimum edge, probe feed."),
+    "patch_length_mm": _len("Patch length along x"),
+    "patch_width_mm": _len("Patch width along y"),
+    "pin_position_mm": _len("Shorting pin position along the shorted edge, from the patch's y-minimum corner",
+                            0.0, zero_ok=True),
+}
+MEANDER_PROPS = {
+    **_board_props("meander", "Meandered trace over a grounded substrate: a lead along x, then legs along y."),
+    "legs": _num("Number of legs along y.", minimum=1, integer=True),
+    "leg_pitch_mm": _len("Centre-line spacing of the legs (> 2 trace widths)"),
+    "meander_height_mm": _len("Centre-line distance between the top and bottom joins"),
+    "trace_width_mm": _len("Trace width"),
+    "lead_length_mm": _len("Length of the lead before the first leg; 0 takes one leg pitch", 0.0, zero_ok=True),
+}
+SPIRAL_PROPS = {
+    **_board_props("spiral", "Single-arm spiral over a grounded substrate, winding inward from its outer start."),
+    "shape": _str("Outline of the spiral.", "square", ["square", "circular"]),
+    "turns": _num("Number of turns (square spirals: quarter steps).", exclusive=0),
+    "outer_half_size_mm": _len("Half side (square) or radius (circular) of the outer turn's centre line"),
+    "turn_pitch_mm": _len("Centre-line spacing between turns (> 2 trace widths)"),
+    "trace_width_mm": _len("Trace width"),
+    "segments_per_turn": _num("Polyline segments per turn of a circular spiral.", 48, minimum=8, integer=True),
+}
+
 CASING = _obj("Dielectric casing around the external antenna: a box this much larger than the conductors on "
               "every side.", {"thickness_mm": _len("Casing wall thickness"), **DIELECTRIC_PROPS},
               ["thickness_mm", "eps_r"], **NOT_BOTH_LOSSES)
@@ -255,6 +300,13 @@ def scene_schema() -> dict:
                                   ["type", "length_mm", "feed_gap_mm", "depth_mm"])
     defs["implant_loop"] = _obj("Implanted loop.", {**LOOP_PROPS, **IMPLANT_PLACE},
                                 ["type", "trace_width_mm", "feed_gap_mm", "depth_mm"])
+    board_req = ["type", "board_size_mm", "substrate", "feed_distance_mm", "depth_mm"]
+    defs["implant_inverted_f"] = _obj("Implanted planar inverted-F antenna.", {**INVERTED_F_PROPS, **IMPLANT_PLACE},
+                                      board_req + ["patch_length_mm", "patch_width_mm"])
+    defs["implant_meander"] = _obj("Implanted meandered-line antenna.", {**MEANDER_PROPS, **IMPLANT_PLACE},
+                                   board_req + ["legs", "leg_pitch_mm", "meander_height_mm", "trace_width_mm"])
+    defs["implant_spiral"] = _obj("Implanted spiral antenna.", {**SPIRAL_PROPS, **IMPLANT_PLACE},
+                                  board_req + ["turns", "outer_half_size_mm", "turn_pitch_mm", "trace_width_mm"])
     for k, v in CONCENTRATORS.items():
         defs[f"concentrator_{k}"] = v
     for k, v in MATERIALS.items():
@@ -277,7 +329,9 @@ def scene_schema() -> dict:
             "external": _dispatch("The external antenna (port 1).", {"dipole": "external_dipole",
                                                                     "loop": "external_loop"}),
             "implant": _dispatch("The implant antenna (port 2); leave out for a scene without implant.",
-                                 {"dipole": "implant_dipole", "loop": "implant_loop"}),
+                                 {"dipole": "implant_dipole", "loop": "implant_loop",
+                                  "inverted_f": "implant_inverted_f", "meander": "implant_meander",
+                                  "spiral": "implant_spiral"}),
             "concentrators": {"description": "Passive metal parts in tissue, placed relative to an anchor.",
                               "type": "array", "default": [],
                               "items": _dispatch("One concentrator.",

@@ -138,6 +138,34 @@ def distance_to_box(points, lo, hi) -> np.ndarray:
     return np.linalg.norm(d, axis=1)
 
 
+def clearance_to_box(p: Primitive, lo, hi, step: float) -> float:
+    """Distance (metres) from a primitive's surface to an axis-aligned box ``[lo, hi]``; <= 0 on contact.
+
+    Exact for a box and for a cylinder along x, y or z: such a cylinder is a segment along its axis
+    times a disc across it, the box an interval times a rectangle, so the distance splits into the
+    interval gap along the axis and the disc-to-rectangle gap across it (analytic). Other primitives
+    use points every ``step`` along their centre line minus their half-thickness (an oblique
+    cylinder's flat ends then count as round: an underestimate of at most its radius).
+    """
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    if isinstance(p, Box):
+        plo, phi = (np.asarray(v, dtype=float) for v in p.bounds())
+        return float(np.linalg.norm(np.maximum(np.maximum(lo - phi, plo - hi), 0.0)))
+    if isinstance(p, Cylinder) and p.along_axis() is not None:
+        k = p.along_axis()
+        a0, a1 = sorted((p.start[k], p.stop[k]))
+        along = max(lo[k] - a1, a0 - hi[k], 0.0)
+        across = [i for i in range(3) if i != k]
+        c = np.asarray(p.start, dtype=float)[across]
+        gap2d = np.maximum(np.maximum(lo[across] - c, c - hi[across]), 0.0)
+        d_across = float(np.linalg.norm(gap2d)) - p.radius
+        if along == 0.0 and d_across <= 0.0:
+            return d_across  # the two overlap
+        return float(np.hypot(along, max(d_across, 0.0)))
+    pts, r = sample_points(p, step)
+    return float(distance_to_box(pts, lo, hi).min()) - r
+
+
 def unit(axis: str) -> np.ndarray:
     e = np.zeros(3)
     e[axis_index(axis)] = 1.0
@@ -145,4 +173,4 @@ def unit(axis: str) -> np.ndarray:
 
 
 __all__ = ["AXES", "PLANE_FRAMES", "plane2xyz", "xyz2polygon_points", "strip_outline", "translate", "rename",
-           "polygon_vertices", "sample_points", "distance_to_box", "unit"]
+           "polygon_vertices", "sample_points", "distance_to_box", "clearance_to_box", "unit"]

@@ -50,7 +50,7 @@ stamp_key() {
   # what the set-up result depends on: this script, the project's dependency list, the OS release,
   # the interpreter, and the engine packages in use (dpkg on Debian 12, the private prefix on 13)
   {
-    cat "$ROOT/scripts/setup.sh" "$ROOT/pyproject.toml" /etc/debian_version 2>/dev/null
+    cat "$ROOT/scripts/setup.sh" "$ROOT/pyproject.toml" "$ROOT/setup.py" /etc/debian_version 2>/dev/null
     "$PY" -c 'import sys; print(sys.executable, sys.version)' 2>/dev/null || echo "no $PY"
     dpkg-query -W libopenems0 libcsxcad0 libnf2ff0 2>/dev/null || true
     cat "$MARKER" 2>/dev/null || true

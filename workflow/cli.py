@@ -1,6 +1,6 @@
 """The ``bodysweep`` command line.
 
-bodysweep check   STUDY        schema and geometry checks, number of cases; writes nothing
+bodysweep check   STUDY        schema, geometry and mesh checks, number of cases; writes nothing
 bodysweep plan    STUDY        per case: done / to run / changed / failed, with cost estimates
 bodysweep run     STUDY        prepare case folders and run the pipeline (Snakemake) with progress
 bodysweep collect STUDY        merge case results into tables
@@ -10,7 +10,8 @@ bodysweep verify  STUDY        integrity of case folders and tables
 
 Exit codes: 0 success; 2 the study file (or a case's geometry) is not usable, nothing written;
 3 some cases failed (run) or integrity problems (verify); 4 refused: the estimated cost is over the
-budget (give --accept-cost); 5 refused: another run of the same study is alive; 1 anything else (the
+budget (give --accept-cost); 5 refused: another run of the same study is alive; 6 interrupted (SIGINT,
+SIGTERM or SIGHUP): the run's processes were stopped, finished cases are kept; 1 anything else (the
 pipeline itself failed).
 """
 from __future__ import annotations
@@ -20,7 +21,7 @@ import os
 import sys
 from pathlib import Path
 
-EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET, EXIT_BUSY = 0, 1, 2, 3, 4, 5
+EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET, EXIT_BUSY, EXIT_INTERRUPTED = 0, 1, 2, 3, 4, 5, 6
 
 
 def _versions() -> str:
@@ -112,43 +113,6 @@ def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
 
 
 # -- cost ------------------------------------------------------------------------------------------------
-def case_cost(case: dict) -> dict:
-    """Mesh and cost estimate of one case (no solver run, no openEMS import).
-
-    Returns a dict ``cells, timestep_s, timesteps, memory_B, cpu_s`` (``cpu_s`` for all excited ports)
-    and ``disk_B, scratch_B`` (:func:`bodysweep.workflow.budget.case_disk_estimate`).
-    """
-    from .budget import case_disk_estimate
-    from .solver import mesh
-    from .solver.settings import settings_from_dict
-
-    model = _build_model(case)
-    settings = settings_from_dict(case.get("solver"))
-    plan = mesh.auto_mesh(model, settings)
-    try:
-        from .solver import cost
-    except ImportError:  # no cost model installed: the mesh still gives the cell count
-        nan = float("nan")
-        return {"cells": float(plan.n_cells), "timestep_s": nan, "timesteps": nan, "memory_B": nan, "cpu_s": nan,
-                **case_disk_estimate(case, float(plan.n_cells))}
-    est = cost.estimate(plan, model, settings)
-    get = (lambda k: est[k]) if isinstance(est, dict) else (lambda k: getattr(est, k))
-
-    def pick(*names, default=float("nan")):
-        for n in names:
-            try:
-                return float(get(n))
-            except (KeyError, AttributeError, TypeError):
-                continue
-        return default
-
-    cells = pick("cells", "n_cells")
-    return {"cells": cells, "timestep_s": pick("timestep_s", "timestep", "dt_s"),
-            "timesteps": pick("timesteps", "n_timesteps"),
-            "memory_B": pick("memory_B", "memory_bytes", "memory"),
-            "cpu_s": pick("cpu_s", "cpu_seconds", "cpu_time_s"), **case_disk_estimate(case, cells)}
-
-
 def _fmt_bytes(b: float) -> str:
     if b != b:
         return "-"
@@ -167,26 +131,29 @@ def _fmt_cpu(s: float) -> str:
 def plan_rows(layout, entries, dicts, previous) -> list[dict]:
     """One row per case: state and, for cases still to run, the mesh and cost estimate.
 
-    Estimates are remembered in the study folder (:mod:`bodysweep.workflow.cost_cache`) and computed in
-    worker processes when many are missing; call :func:`remember_costs` to store them.
+    Estimates (:func:`bodysweep.workflow.estimate.case_estimate`) are remembered in the study folder
+    (:mod:`bodysweep.workflow.cost_cache`) and computed in worker processes when many are missing; call
+    :func:`remember_costs` to store them.
     """
     from . import cost_cache
+    from .estimate import case_estimate
     from .pipeline import case_states
 
     states = case_states(layout, entries, previous)
     need = [d for d, (state, _) in zip(dicts, states) if state != "done"]
     known = cost_cache.load(layout.root)
-    found = cost_cache.estimates(need, known, case_cost)
+    found = cost_cache.estimates(need, known, case_estimate)
     rows = []
     for e, d, (state, why) in zip(entries, dicts, states):
         row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
         if state != "done":
             est = found[d["case_id"]]
             if isinstance(est, Exception):  # a case the mesher refuses shows up as such, not as a crash
+                row["_refused"] = " ".join(str(est).split())
                 row.update({"cells": float("nan"), "timesteps": float("nan"), "memory_B": float("nan"),
                             "cpu_s": float("nan"), "disk_B": float("nan"), "scratch_B": float("nan"), "note": f"no estimate: {' '.join(str(est).split())[:120]}"})
             else:
-                row.update(est)
+                row.update(est.as_row())
                 row["_estimate"] = est
         rows.append(row)
     return rows
@@ -196,9 +163,7 @@ def remember_costs(layout, rows: list[dict]) -> None:
     """Store the estimates of ``rows`` in the study folder if it exists (nothing is created for it)."""
     from . import cost_cache
 
-    known = cost_cache.load(layout.root)
-    known.update({r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
-    cost_cache.save(layout.root, known)
+    cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
 def study_cpu_budget_hours(study, given: float | None) -> float:
@@ -256,10 +221,30 @@ def _machine_memory_GB() -> float:
 
 
 # -- subcommands -----------------------------------------------------------------------------------------
+def _refuse_mesh(case: dict, reason: str) -> None:
+    raise StudyUnusable(f"case {case['case_id']} ({case.get('label', '')}): mesh: {reason}")
+
+
+def _check_meshes(layout, dicts: list[dict]) -> int:
+    """Mesh every case as the solver step will (the path of ``plan``'s estimates, remembered ones reused);
+    raise StudyUnusable naming the first case the solver would refuse. Writes nothing."""
+    from . import cost_cache
+
+    from .estimate import case_estimate
+
+    found = cost_cache.estimates(dicts, cost_cache.load(layout.root), case_estimate)
+    for d in dicts:
+        if isinstance(found[d["case_id"]], Exception):
+            _refuse_mesh(d, " ".join(str(found[d["case_id"]]).split()))
+    return len(found)
+
+
 def cmd_check(a) -> int:
     study, layout, entries, dicts = _expand(a.study, a.results_dir)
     n_scenes = _check_geometry(dicts)
-    print(f"study {study.name!r}: {len(entries)} cases ({n_scenes} distinct scenes built without error)")
+    n_meshes = _check_meshes(layout, dicts)
+    print(f"study {study.name!r}: {len(entries)} cases ({n_scenes} distinct scenes built without error, "
+          f"{n_meshes} meshes the solver accepts)")
     print(f"results would go to {layout.root}")
     return EXIT_OK
 
@@ -308,9 +293,14 @@ def cmd_run(a) -> int:
     rows: list[dict] = []
     if not a.accept_cost:
         rows = plan_rows(layout, entries, dicts, previous_plan(layout))
+        for d, r in zip(dicts, rows):  # a case the solver would refuse stops the run before any job
+            if r.get("_refused"):
+                _refuse_mesh(d, r["_refused"])
         problems = _study_budget_problems(study, rows, a)
         if problems:
             return _refuse_over_budget(problems)
+    else:
+        _check_meshes(layout, dicts)
     from .runlock import StudyBusy
 
     from datetime import datetime, timezone
@@ -334,8 +324,10 @@ def _run_lock(layout, log: Path):
     others = other_snakemake_runs(layout)
     if others:
         lock.release()
-        raise StudyBusy(f"study {layout.root.name!r} is being run by snakemake (pid {', '.join(map(str, others))}) "
-                        f"started outside bodysweep; wait for it to end or stop it (results folder {layout.root})")
+        from .runlock import describe_snakemake
+
+        raise StudyBusy(f"study {layout.root.name!r} is being run by {describe_snakemake(others)}; "
+                        f"wait for it to end or stop it (results folder {layout.root})")
     return lock
 
 
@@ -347,6 +339,11 @@ def _run_locked(a, lock, log: Path) -> int:
     if cleared["snakemake_locks"] or cleared["temporaries"]:
         print(f"an earlier run of this study was interrupted: removed {cleared['snakemake_locks']} stale "
               f"Snakemake lock files and {cleared['temporaries']} leftover temporary files")
+    from .interrupt import settle_incomplete
+
+    settled = settle_incomplete(lock.layout, ".")
+    if settled:
+        print(f"kept {len(settled)} outputs that an interrupted run finished (not redone)")
     prep = prepare(a.study, a.results_dir)
     if a.retry_failed:
         reset = reset_failed(prep.layout, prep.entries)
@@ -363,7 +360,14 @@ def _run_locked(a, lock, log: Path) -> int:
     args = snakemake_args(a.study, results_dir=a.results_dir, workdir=".", cores=a.cores, jobs=a.jobs,
                           threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
     lock_fds = (lock.fd,)  # Snakemake holds the study lock too (runlock module docstring)
-    rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".", pass_fds=lock_fds)
+    from .interrupt import RunInterrupted, profile_submits
+
+    cluster = profile_submits(resolve_profile(a.profile))
+    try:
+        rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
+                           pass_fds=lock_fds, cluster=cluster)
+    except RunInterrupted as exc:
+        return _interrupted(a, exc, lock, prep, log)
     if rc != 0 and _snakemake_lock_refused(log):
         _err(f"snakemake refused to lock the working directory {Path('.').resolve()}: another snakemake run "
              f"there uses files of this study; see {log}")
@@ -372,16 +376,22 @@ def _run_locked(a, lock, log: Path) -> int:
         marked = mark_unfinished(prep.layout, prep.entries)
         if marked:
             print(f"{len(marked)} cases ended without a result; recorded as failed. Collecting the rest.")
-            rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
-                               pass_fds=lock_fds)
+            try:
+                rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
+                                   pass_fds=lock_fds, cluster=cluster)
+            except RunInterrupted as exc:
+                return _interrupted(a, exc, lock, prep, log)
     if rc == 0:  # an uncertainty budget for the best cases: their runs are known once the cases have results
         again = prepare(a.study, a.results_dir)
         added = {e["case_id"] for e in again.entries} - {e["case_id"] for e in prep.entries}
         if added:
             print(f"uncertainty budget: {len(added)} component runs for the best cases")
             prep = again
-            rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
-                               pass_fds=lock_fds)
+            try:
+                rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
+                                   pass_fds=lock_fds, cluster=cluster)
+            except RunInterrupted as exc:
+                return _interrupted(a, exc, lock, prep, log)
     if rc != 0:
         _err(f"the pipeline failed (snakemake exit {rc}); see {log}")
         return EXIT_ERROR
@@ -397,6 +407,18 @@ def _run_locked(a, lock, log: Path) -> int:
             print(f"  ... and {len(failed) - 20} more (see the summary table)")
         return EXIT_FAILED
     return EXIT_OK
+
+
+def _interrupted(a, exc, lock, prep, log: Path) -> int:
+    """After a stop signal: say what was stopped and what is kept; leave the study clean; exit code 6."""
+    from .interrupt import after_stop
+
+    for line in (exc.report.lines() if exc.report else [f"interrupted ({exc})"]):
+        print(line)
+    print(after_stop(lock.layout, prep.entries, ".") + f"; `bodysweep run {a.study}` continues with the rest "
+          f"(log: {log})")
+    _err(f"interrupted by {exc.report.signal_name if exc.report else exc}; stopped the run")
+    return EXIT_INTERRUPTED
 
 
 def _snakemake_lock_refused(log: Path) -> bool:
@@ -491,7 +513,7 @@ def build_parser() -> argparse.ArgumentParser:
                                  "to implanted devices: S-parameters, averaged SAR, SAR-limited link budgets.",
                                  epilog="Exit codes: 0 ok, 1 pipeline error, 2 unusable study file, "
                                         "3 failed cases / integrity problems, 4 over the cost budget, "
-                                        "5 another run of the study is alive.")
+                                        "5 another run of the study is alive, 6 interrupted (finished cases kept).")
     ap.add_argument("--version", action="store_true",
                     help="print bodysweep, openEMS, CSXCAD, snakemake and numpy versions")
     sub = ap.add_subparsers(dest="command", metavar="COMMAND")
@@ -514,7 +536,8 @@ def build_parser() -> argparse.ArgumentParser:
                             "study's budget.max_disk_GB, else 90%% of the free space where the results go)")
         p.add_argument("--accept-cost", action="store_true", help="run even when over the budget")
 
-    add("check", "check the study file (schema, geometry of every case) and count its cases; writes nothing",
+    add("check", "check the study file (schema, geometry and mesh of every case, as the solver would build "
+                 "them) and count its cases; writes nothing",
         cmd_check)
     budget(add("plan", "list each case as done / to run / changed / failed with cell count, timesteps, memory "
                        "and CPU-time estimates, and the total", cmd_plan))
@@ -559,7 +582,7 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_STUDY
     except KeyboardInterrupt:
         _err("interrupted")
-        return 130
+        return EXIT_INTERRUPTED
 
 
 if __name__ == "__main__":

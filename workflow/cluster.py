@@ -1,8 +1,9 @@
 """Batch-scheduler requests for one case: memory, time limit and threads from the case's cost estimate.
 
 A solve job on a cluster must ask for enough memory and time, or the scheduler kills it; asking for far
-more makes it wait longer in the queue. The request is derived from the case's cost estimate (cells,
-engine memory in bytes, single-thread CPU seconds) with margins, and grows on each retry, so a job that
+more makes it wait longer in the queue. The request is derived from the case's cost estimate
+(:class:`~bodysweep.workflow.solver.cost.CostEstimate`: cells, engine memory in bytes, single-thread CPU
+seconds per excited port) with margins, and grows on each retry, so a job that
 hit its limit is resubmitted larger.
 
 The Snakemake rule that solves a case uses it as (workflow/rules/solve.smk)::
@@ -24,48 +25,12 @@ import math
 import os
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Mapping
+
+from .solver.cost import CostEstimate
 
 MIB = 2**20
 """Bytes per MiB; SLURM's memory unit "M" is 1024-based (sbatch man page, --mem)."""
-
-
-@dataclass(frozen=True)
-class CaseCost:
-    """What one excitation of a case costs on one thread.
-
-    Parameters
-    ----------
-    cells : int
-        FDTD cells of the mesh (>= 1).
-    memory_bytes : float
-        Peak memory of the engine process for this case, bytes (> 0).
-    cpu_seconds : float
-        Single-thread CPU time of one excitation, seconds (> 0).
-    """
-
-    cells: int
-    memory_bytes: float
-    cpu_seconds: float
-
-    def __post_init__(self):
-        if not isinstance(self.cells, int) or isinstance(self.cells, bool) or self.cells < 1:
-            raise ValueError(f"case cost: cells must be a positive integer, got {self.cells!r}")
-        for name in ("memory_bytes", "cpu_seconds"):
-            v = getattr(self, name)
-            if not isinstance(v, (int, float)) or isinstance(v, bool) or not math.isfinite(v) or v <= 0:
-                raise ValueError(f"case cost: {name} must be a positive finite number, got {v!r}")
-
-    @classmethod
-    def from_any(cls, estimate: Any) -> "CaseCost":
-        """Read ``cells``, ``memory_bytes``, ``cpu_seconds`` from a mapping or an object with those attributes."""
-        if isinstance(estimate, CaseCost):
-            return estimate
-        get = estimate.get if isinstance(estimate, Mapping) else (lambda k: getattr(estimate, k, None))
-        missing = [k for k in ("cells", "memory_bytes", "cpu_seconds") if get(k) is None]
-        if missing:
-            raise ValueError(f"case cost: the estimate lacks {', '.join(missing)}; it needs cells, memory_bytes, cpu_seconds")
-        return cls(cells=int(get("cells")), memory_bytes=float(get("memory_bytes")), cpu_seconds=float(get("cpu_seconds")))
 
 
 @dataclass(frozen=True)
@@ -150,13 +115,14 @@ def cells2threads(cells: int, max_threads: int = 8, requested: int = 0) -> int:
     return max(1, min(n, max_threads))
 
 
-def cost2resources(cost: CaseCost, threads: int, attempt: int = 1, sizing: JobSizing = DEFAULT_SIZING) -> dict:
-    """Scheduler request for one solve job.
+def cost2resources(cost: CostEstimate, threads: int, attempt: int = 1, sizing: JobSizing = DEFAULT_SIZING) -> dict:
+    """Scheduler request for one solve job (one excited port of the case).
 
     Parameters
     ----------
-    cost : CaseCost
-        Single-thread cost of one excitation.
+    cost : CostEstimate
+        The case's estimate: memory of one excitation, CPU time per excitation
+        (:attr:`~bodysweep.workflow.solver.cost.CostEstimate.cpu_seconds_per_excitation`).
     threads : int
         Threads the job runs on (>= 1).
     attempt : int
@@ -177,21 +143,20 @@ def cost2resources(cost: CaseCost, threads: int, attempt: int = 1, sizing: JobSi
     grow = sizing.retry_growth ** (attempt - 1)
     mem_mb = math.ceil((cost.memory_bytes * sizing.memory_factor / MIB + sizing.memory_base_mb) * grow)
     speedup = 1.0 + (threads - 1) * sizing.parallel_efficiency
-    wall_s = cost.cpu_seconds / speedup * sizing.runtime_factor + sizing.runtime_base_s
+    wall_s = cost.cpu_seconds_per_excitation / speedup * sizing.runtime_factor + sizing.runtime_base_s
     runtime_min = max(sizing.min_runtime_min, math.ceil(wall_s * grow / 60.0))
     return {"mem_mb": int(mem_mb), "runtime": int(runtime_min), "threads": int(threads)}
 
 
-_FOLDER_COSTS: dict[tuple[str, int, int], tuple[CaseCost, int]] = {}
+_FOLDER_COSTS: dict[tuple[str, int, int], tuple[CostEstimate, int]] = {}
 
 
-def _case_cost_from_folder(case_dir: Path) -> tuple[CaseCost, int]:
-    """The cost of one excitation of a prepared case and the study's requested threads (0 = choose).
+def _case_cost_from_folder(case_dir: Path) -> tuple[CostEstimate, int]:
+    """The cost estimate of a prepared case and the study's requested threads (0 = choose).
 
-    The estimate comes from the case's mesh (:func:`bodysweep.workflow.cli.case_cost`, which calls the
-    mesh developer's :mod:`bodysweep.workflow.solver.cost`; no openEMS import). Its CPU time covers all
-    excited ports; one solve job runs one port, so it is divided by their number. Results are cached
-    per ``case.json`` modification time and size: Snakemake asks for a job's resources several times.
+    The estimate comes from the case's mesh (:func:`bodysweep.workflow.estimate.case_estimate`; no
+    openEMS import). Results are cached per ``case.json`` modification time and size: Snakemake asks for
+    a job's resources several times.
     """
     case_file = case_dir / "case.json"
     try:
@@ -203,31 +168,23 @@ def _case_cost_from_folder(case_dir: Path) -> tuple[CaseCost, int]:
     if hit is not None:
         return hit
     case = json.loads(case_file.read_text())
-    solver = case.get("solver") or {}
-    requested = int(solver.get("threads", 0) or 0)
-    n_ports = max(1, len(solver.get("excite_ports") or [1]))
-    from .cli import case_cost
+    requested = int((case.get("solver") or {}).get("threads", 0) or 0)
+    from .estimate import case_estimate
 
-    est = case_cost(case)
-    cells, memory_b, cpu_s = est.get("cells"), est.get("memory_B"), est.get("cpu_s")
-    bad = [k for k, v in (("cells", cells), ("memory_B", memory_b), ("cpu_s", cpu_s)) if not (v == v and v)]
-    if bad:
-        raise ValueError(f"case {case.get('case_id', case_dir.name)}: the cost estimate has no {', '.join(bad)} "
-                         f"(got {est}); cannot size its cluster job")
-    cost = CaseCost(cells=int(cells), memory_bytes=float(memory_b), cpu_seconds=float(cpu_s) / n_ports)
+    cost = case_estimate(case)  # CostEstimate checks itself: positive cells, memory and CPU time
     _FOLDER_COSTS[key] = (cost, requested)
     return cost, requested
 
 
-def resources_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, attempt: int = 1,
+def resources_for_case(source: str | os.PathLike | Mapping | CostEstimate, attempt: int = 1,
                        sizing: JobSizing = DEFAULT_SIZING) -> dict:
     """Scheduler request (``mem_mb``, ``runtime``, ``threads``) for solving one case.
 
     Parameters
     ----------
-    source : path, mapping or estimate
+    source : path, CostEstimate or mapping
         A prepared case folder (its ``case.json`` is meshed and costed, see :func:`_case_cost_from_folder`),
-        or an estimate with ``cells``, ``memory_bytes``, ``cpu_seconds``.
+        an estimate, or its :meth:`~bodysweep.workflow.solver.cost.CostEstimate.to_dict` form.
     attempt : int
         Snakemake's attempt counter (1 on the first submission); each retry asks for more.
     sizing : JobSizing
@@ -236,13 +193,15 @@ def resources_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, att
     requested = 0
     if isinstance(source, (str, os.PathLike)):
         cost, requested = _case_cost_from_folder(Path(source))
+    elif isinstance(source, CostEstimate):
+        cost = source
     else:
-        cost = CaseCost.from_any(source)
+        cost = CostEstimate.from_dict(source)
     threads = cells2threads(cost.cells, sizing.max_threads, requested)
     return cost2resources(cost, threads, attempt, sizing)
 
 
-def threads_for_case(source: str | os.PathLike | Mapping | CaseCost | Any, sizing: JobSizing = DEFAULT_SIZING) -> int:
+def threads_for_case(source: str | os.PathLike | Mapping | CostEstimate, sizing: JobSizing = DEFAULT_SIZING) -> int:
     """Threads for solving one case (see :func:`resources_for_case`)."""
     return resources_for_case(source, 1, sizing)["threads"]
 

@@ -3,9 +3,11 @@
 Three tables, every row carrying the ``case_id`` (see the data dictionary in README.md):
 
 ``sparams``  long form: one row per case, band frequency and S-matrix entry ``(i, j)``;
-``sar``      one row per case and averaging mass: peak averaged SAR per watt of input power and where;
-``summary``  one row per case (one case = one frequency): parameters, S11/S21/S22 in dB, peak SAR,
-             allowed input power per exposure limit, delivered implant power, link efficiency, status.
+``sar``      one row per case and averaging mass: peak averaged SAR per watt of input power, which cube gave
+             it (voxel grid or flush with a surface), its cube centre and side and the peak voxel;
+``summary``  one row per case (one case = one frequency): parameters, S11/S21/S22 in dB, port impedances,
+             mismatch losses, peak SAR, SAR-limited accepted power per exposure limit, implant power per
+             matching variant, the study's figure of merit, status and warnings.
 
 Inputs are the files of the case-folder contract (``metrics.json``, ``sparams.s2p``) and the study's
 ``plan.json`` (case ids, labels and swept parameters), so nothing is re-expanded and no ``case.json``
@@ -23,17 +25,24 @@ import numpy as np
 import pandas as pd
 
 from .atomic import atomic_path
-from .layout import StudyLayout, read_plan
-from .post.flags import warnings_text
-
-TABLE_NAMES = ("summary", "sparams", "sar", "uncertainty")
+from .layout import TABLE_NAMES, StudyLayout, read_plan
+from .post.flags import WARNING_SEPARATOR  # between the warnings of one case in the ``warnings`` column
 
 #: columns every summary row has, in this order (parameter and per-limit columns are added)
 SUMMARY_FIXED = ("case_id", "label", "status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB")
-SUMMARY_TAIL = ("matched_link_efficiency_dB", "runtime_s", "cells", "timesteps", "decay_reached", "energy_balance",
-                "warnings")
+#: port and matching figures (after S22_dB)
+PORT_COLUMNS = ("Zin1_re_ohm", "Zin1_im_ohm", "Zin2_re_ohm", "Zin2_im_ohm", "mismatch_loss_port1_dB",
+                "mismatch_loss_port2_dB", "rollett_K", "max_available_gain_dB", "port2_reason")
+#: implant power at the SAR limit per matching variant (see workflow/post/portfigures.py)
+IMPLANT_VARIANTS = ("unmatched", "tx_matched", "both_matched")
+LINK_COLUMNS = (("sar_limited_accepted_W", "sar_limited_accepted_dBm", "deciding_limit")
+                + tuple(f"implant_power_{v}_{u}" for v in IMPLANT_VARIANTS for u in ("W", "dBm"))
+                + ("figure_of_merit", "figure_of_merit_value"))
+SUMMARY_TAIL = ("warnings", "runtime_s", "cells", "timesteps", "decay_reached", "energy_balance")
 SPARAMS_FIXED = ("case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg")
-SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "x_mm", "y_mm", "z_mm")
+SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
+               "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
+               "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face", "flush_search_converged")
 
 
 # -- small conversions ------------------------------------------------------------------------------
@@ -132,6 +141,38 @@ def touchstone2arrays(path: str | Path) -> tuple[np.ndarray, np.ndarray]:
     return f_Hz, S
 
 
+LEGACY_NOTE = ("metrics.json written before port figures existed: input impedances, mismatch losses and K are "
+               "empty; remove the case's metrics.json and run the study again (only the finish step reruns)")
+
+
+def _legacy_metrics(m: dict, S: dict):
+    """For a finished case's ``metrics.json`` of the earlier format (``max_input_power_W``, ``delivered_power_W``,
+    ``matched_link_efficiency``): a function mapping each limit row to the current keys, else None.
+
+    The earlier figures are the same quantities: ``delivered_power_W`` was P_lim |S21|^2 / (1 - |S11|^2) (port 1
+    matched), ``matched_link_efficiency`` the maximum available gain; the unmatched figure is P_lim |S21|^2.
+    """
+    if m.get("status") not in ("ok", "warning") or "ports" in m or "matched_link_efficiency" not in m:
+        return None
+    mag = _num(m.get("matched_link_efficiency"))
+
+    def convert(lim: dict) -> dict:
+        p = _num(lim.get("max_input_power_W"))
+        s21 = abs(S["S21"])
+        return {**lim, "sar_limited_accepted_W": p, "implant_power_W": {
+            "unmatched": p * s21 ** 2 if s21 == s21 else None, "tx_matched": lim.get("delivered_power_W"),
+            "both_matched": p * mag if mag == mag else None}}
+    return convert
+
+
+def _band_from_result(path: Path) -> tuple[np.ndarray, np.ndarray]:
+    """The band S-matrix kept in a case's ``result.h5`` (``sparams/f_Hz``, ``sparams/S``; NaN = not computed)."""
+    import h5py
+
+    with h5py.File(path, "r") as h5:
+        return h5["sparams/f_Hz"][()], h5["sparams/S"][()]
+
+
 # -- reading the case folders -------------------------------------------------------------------------
 def read_metrics(case_dir: Path) -> dict:
     """``metrics.json`` of a case, or a record saying it is missing / unreadable."""
@@ -171,8 +212,39 @@ def _param_value(v: Any) -> Any:
     return v
 
 
+#: figures of merit a study may rank by (key ``figure_of_merit``), each the summary column(s) it reads;
+#: ``implant_power`` is the both-ends-matched implant power where port 2 was excited, else port-1-matched
+MERITS = {
+    "implant_power": ("implant_power_both_matched_dBm", "implant_power_tx_matched_dBm"),
+    "implant_power_both_matched": ("implant_power_both_matched_dBm",),
+    "implant_power_tx_matched": ("implant_power_tx_matched_dBm",),
+    "implant_power_unmatched": ("implant_power_unmatched_dBm",),
+    "S21": ("S21_dB",),
+    "sar_limited_accepted_power": ("sar_limited_accepted_dBm",),
+}
+DEFAULT_MERIT = "implant_power"
+
+
+def figure_of_merit(summary: pd.DataFrame, merit: str = DEFAULT_MERIT) -> str:
+    """The one column the whole study is ranked by (higher is better); ``""`` when none has a value.
+
+    Of the merit's candidate columns the first one that every case with any candidate value has is
+    taken, so that all cases are ranked on the same basis (one case without a both-ends match puts the
+    study on the port-1-matched figure rather than mixing the two).
+    """
+    cands = [c for c in MERITS[merit] if c in summary]
+    if not cands:
+        return ""
+    vals = summary[cands].apply(pd.to_numeric, errors="coerce")
+    anyv = vals.notna().any(axis=1)
+    for c in cands:
+        if anyv.any() and vals.loc[anyv, c].notna().all():
+            return c
+    return next((c for c in cands if vals[c].notna().any()), "")
+
+
 def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
-                   band: bool = True) -> dict[str, pd.DataFrame]:
+                   band: bool = True, merit: str | None = None) -> dict[str, pd.DataFrame]:
     """Build the three tables of a study in memory.
 
     Parameters
@@ -184,6 +256,9 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     band : bool
         Read each case's ``sparams.s2p`` for the band in the ``sparams`` table (default). If False or
         the file is missing, the ``sparams`` table holds the case frequency from ``metrics.json`` only.
+    merit : str, optional
+        The figure of merit (one of :data:`MERITS`); default: the study's ``figure_of_merit`` from
+        ``plan.json``, else :data:`DEFAULT_MERIT`.
 
     Returns
     -------
@@ -197,7 +272,12 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         plan = read_plan(layout)
         entries = plan["cases"]
     entries, budget_runs = split_entries(entries)  # uncertainty component runs: only in the budget
-    pcols = parameter_columns(entries, set(SUMMARY_FIXED) | set(SUMMARY_TAIL) | set(SPARAMS_FIXED) | {CASE_FREQUENCY})
+    if merit is None:
+        if plan is None and layout.plan_file.exists():
+            plan = read_plan(layout)
+        merit = ((plan or {}).get("settings") or {}).get("figure_of_merit", DEFAULT_MERIT)
+    pcols = parameter_columns(entries, set(SUMMARY_FIXED) | set(SUMMARY_TAIL) | set(SPARAMS_FIXED) | {CASE_FREQUENCY}
+                              | set(PORT_COLUMNS) | set(LINK_COLUMNS))
     summary_rows: list[dict] = []
     sar_rows: list[dict] = []
     sp_blocks: list[dict[str, np.ndarray]] = []
@@ -220,35 +300,55 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
             col = f"peak_SAR_{tag}_W_per_kg_per_W"
             mass_cols[col] = None
             row[col] = _num(s.get("peak_W_per_kg_per_W"))
-            loc = s.get("location_m") or [math.nan] * 3
+            cube = s.get("cube_centre_m") or [math.nan] * 3
+            vox = s.get("voxel_centre_m") or s.get("location_m") or [math.nan] * 3  # location_m: before version 3
             sar_rows.append({"case_id": cid, "frequency_MHz": f_Hz * 1e-6,
                              "mass_g": _num(s.get("mass_kg")) * 1e3,
                              "peak_W_per_kg_per_W": _num(s.get("peak_W_per_kg_per_W")),
-                             "x_mm": _num(loc[0]) * 1e3, "y_mm": _num(loc[1]) * 1e3, "z_mm": _num(loc[2]) * 1e3})
-        allowed, delivered = [], []
+                             "peak_from": str(s.get("peak_from") or ""),
+                             **{f"cube_{a}_mm": _num(v) * 1e3 for a, v in zip("xyz", cube)},
+                             "cube_side_mm": _num(s.get("cube_side_m")) * 1e3,
+                             **{f"voxel_{a}_mm": _num(v) * 1e3 for a, v in zip("xyz", vox)},
+                             "grid_peak_W_per_kg_per_W": _num(s.get("grid_peak_W_per_kg_per_W")),
+                             "flush_peak_W_per_kg_per_W": _num(s.get("flush_peak_W_per_kg_per_W")),
+                             "flush_face": str(s.get("flush_face") or ""),
+                             "flush_search_converged": s.get("flush_search_converged") is not False})
+        ports = m.get("ports") or {}
+        for p in (1, 2):
+            z = _pair2complex(ports.get(f"Zin{p}_ohm"))
+            row[f"Zin{p}_re_ohm"], row[f"Zin{p}_im_ohm"] = z.real, z.imag
+            row[f"mismatch_loss_port{p}_dB"] = _num(ports.get(f"mismatch_loss_port{p}_dB"))
+        row["rollett_K"] = _num(ports.get("rollett_K"))
+        row["max_available_gain_dB"] = ratio2db(m.get("max_available_gain"))
+        row["port2_reason"] = str(ports.get("port2_reason") or "")
+        allowed = []
+        legacy = _legacy_metrics(m, S)
         for lim in m.get("limits", []) or []:
             tag = limit_tag(lim)
-            p_in, p_del = _num(lim.get("max_input_power_W")), _num(lim.get("delivered_power_W"))
-            row[f"allowed_input_W_{tag}"] = p_in
-            row[f"allowed_input_dBm_{tag}"] = watt2dbm(p_in)
-            row[f"delivered_W_{tag}"] = p_del
-            row[f"delivered_dBm_{tag}"] = watt2dbm(p_del)
+            if legacy:
+                lim = legacy(lim)
+            p_in = _num(lim.get("sar_limited_accepted_W"))
+            row[f"sar_limited_accepted_W_{tag}"] = p_in
+            row[f"sar_limited_accepted_dBm_{tag}"] = watt2dbm(p_in)
             row[f"limit_source_{tag}"] = str(lim.get("source", ""))
             limit_cols[tag] = None
-            allowed.append((p_in, p_del))
-        # the most restrictive limit decides the usable input power
-        finite = [(a, d) for a, d in allowed if a == a]
-        p_in, p_del = min(finite) if finite else (math.nan, math.nan)
-        row["allowed_input_W"], row["allowed_input_dBm"] = p_in, watt2dbm(p_in)
-        row["delivered_W"], row["delivered_dBm"] = p_del, watt2dbm(p_del)
-        row["matched_link_efficiency_dB"] = ratio2db(m.get("matched_link_efficiency"))
+            allowed.append((p_in, tag, lim.get("implant_power_W") or {}))
+        # the most restrictive limit decides the usable accepted power
+        finite = [x for x in allowed if x[0] == x[0]]
+        p_in, tag, powers = min(finite, key=lambda x: x[0]) if finite else (math.nan, "", {})
+        row["sar_limited_accepted_W"], row["sar_limited_accepted_dBm"] = p_in, watt2dbm(p_in)
+        row["deciding_limit"] = tag
+        for v in IMPLANT_VARIANTS:
+            pv = _num(powers.get(v))
+            row[f"implant_power_{v}_W"], row[f"implant_power_{v}_dBm"] = pv, watt2dbm(pv)
+        row["warnings"] = WARNING_SEPARATOR.join(str(w) for w in (m.get("warnings") or []) + (
+            [LEGACY_NOTE] if legacy else []))
         row["runtime_s"] = _num(m.get("runtime_s"))
         row["cells"] = _num(m.get("cells"))
         row["timesteps"] = _num(m.get("timesteps"))
         dr = m.get("decay_reached")
         row["decay_reached"] = bool(dr) if isinstance(dr, bool) else None
         row["energy_balance"] = _num(m.get("energy_balance"))
-        row["warnings"] = warnings_text([w for w in m.get("warnings") or [] if isinstance(w, dict)])
         summary_rows.append(row)
 
         # S-parameters: the band from the Touchstone file, else the case frequency from metrics.json
@@ -256,11 +356,14 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         ts = cdir / "sparams.s2p"
         if not ts.exists() and (cdir / "sparams.s1p").exists():  # a scene without implant is a one-port
             ts = cdir / "sparams.s1p"
-        if band and row["status"] == "ok" and ts.exists():
+        if band and row["status"] in ("ok", "warning") and ts.exists():
             try:
-                fb, Sb = touchstone2arrays(ts)
-                block = (fb, Sb)
-            except (OSError, ValueError):
+                if ts.suffix == ".s1p" and S["S21"] == S["S21"]:
+                    # only port 1 excited: the one-port file holds S11, result.h5 the computed S21 too
+                    block = _band_from_result(cdir / "result.h5")
+                else:
+                    block = touchstone2arrays(ts)
+            except (OSError, ValueError, KeyError):
                 block = None
         if block is None and f_Hz == f_Hz:
             Sm = np.array([[S["S11"], S["S12"]], [S["S21"], S["S22"]]], dtype=complex)[None]
@@ -282,13 +385,14 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     summary = pd.DataFrame(summary_rows)
     lim_order = []
     for tag in limit_cols:
-        lim_order += [f"allowed_input_W_{tag}", f"allowed_input_dBm_{tag}", f"delivered_W_{tag}",
-                      f"delivered_dBm_{tag}", f"limit_source_{tag}"]
+        lim_order += [f"sar_limited_accepted_W_{tag}", f"sar_limited_accepted_dBm_{tag}", f"limit_source_{tag}"]
     order = (["case_id", "label"] + list(dict.fromkeys(pcols.values()))
-             + ["status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB"] + list(mass_cols)
-             + ["allowed_input_W", "allowed_input_dBm", "delivered_W", "delivered_dBm"] + lim_order
-             + list(SUMMARY_TAIL))
+             + ["status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB"] + list(PORT_COLUMNS)
+             + list(mass_cols) + list(LINK_COLUMNS) + lim_order + list(SUMMARY_TAIL))
     summary = summary.reindex(columns=order)
+    basis = figure_of_merit(summary, merit)
+    summary["figure_of_merit"] = basis
+    summary["figure_of_merit_value"] = pd.to_numeric(summary[basis], errors="coerce") if basis else math.nan
     for c in ("cells", "timesteps"):
         summary[c] = summary[c].astype("Float64").round().astype("Int64")
 
@@ -312,7 +416,8 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     frames = {"summary": summary, "sparams": sp, "sar": sar}
     if plan is None and layout.plan_file.exists():
         plan = read_plan(layout)
-    return add_budget(frames, layout, entries, budget_runs, (plan or {}).get("uncertainty"), read_metrics)
+    return add_budget(frames, layout, entries, budget_runs, ((plan or {}).get("settings") or {}).get("uncertainty"),
+                      read_metrics)
 
 
 def arrow_safe(df: pd.DataFrame) -> pd.DataFrame:

@@ -18,7 +18,8 @@ import numpy as np
 import pandas as pd
 
 from .post import uncertainty as gum
-from .study.uncertainty import budget_map, is_budget_run
+from .layout import budget_map, is_budget_run
+from .post.flags import WARNING_SEPARATOR
 
 UNCERTAINTY_COLUMNS = ("case_id", "label", "source", "quantity", "unit", "component", "deviation", "distribution",
                        "divisor", "standard_uncertainty", "run_case_id")
@@ -39,7 +40,7 @@ def _after(q: str) -> str:
     """The summary column an uncertainty column of quantity ``q`` is placed after."""
     if q.startswith("peak_SAR_"):
         return f"{q}_W_per_kg_per_W"
-    return {"S11": "S11_dB", "S21": "S21_dB", "allowed_input": "allowed_input_dBm", "delivered": "delivered_dBm"}[q]
+    return {"S11": "S11_dB", "S21": "S21_dB"}.get(q, f"{q}_dBm")
 
 
 def add_budget(frames: dict[str, pd.DataFrame], layout, entries: list[dict], runs: list[dict],
@@ -51,7 +52,7 @@ def add_budget(frames: dict[str, pd.DataFrame], layout, entries: list[dict], run
     comps = list(cfg["components"])
     bmap = budget_map(entries + runs)
     metrics = {e["case_id"]: read_metrics(layout.case_dir(e["case_id"])) for e in entries + runs}
-    ok = {c for c, m in metrics.items() if m.get("status") == "ok"}
+    ok = {c for c, m in metrics.items() if m.get("status") in ("ok", "warning")}
 
     # own deviations of the cases with component runs
     own: dict[str, dict[str, dict[str, float]]] = {}
@@ -115,29 +116,32 @@ def add_budget(frames: dict[str, pd.DataFrame], layout, entries: list[dict], run
         kinds = {q: k for x in extra.values() for q, k in x["kinds"].items()}
         for q in quantities:
             summary[_column(q, kinds[q])] = summary["case_id"].map(lambda c, q=q: extra.get(c, {}).get("U", {}).get(q, np.nan))
-        summary["allowed_input_W_conservative"] = [
+        summary["sar_limited_accepted_W_conservative"] = [
             _conservative(metrics.get(c, {}), extra.get(c)) for c in summary["case_id"]]
-        summary["allowed_input_dBm_conservative"] = [
-            10 * math.log10(p / 1e-3) if p == p and p > 0 else math.nan for p in summary["allowed_input_W_conservative"]]
+        summary["sar_limited_accepted_dBm_conservative"] = [
+            10 * math.log10(p / 1e-3) if p == p and p > 0 else math.nan
+            for p in summary["sar_limited_accepted_W_conservative"]]
         summary["uncertainty_source"] = summary["case_id"].map(lambda c: extra.get(c, {}).get("source", ""))
         limit = float(cfg.get("mesh_warning_fraction", 0.1))
         for i, c in enumerate(summary["case_id"]):
             src = extra.get(c, {}).get("source", "")
             whose = "" if src == "own" else f" ({src})"
-            flags = [f"mesh component of {q} is {v * 100:.3g} %{whose}, above {limit * 100:g} %: refine the mesh "
+            flags = [f"mesh_component: mesh component of {q} is {v * 100:.3g} %{whose}, above {limit * 100:g} %: refine the mesh "
                      "before quoting it" for q, v in (extra.get(c, {}).get("mesh") or {}).items() if v == v and v > limit]
             if flags:
                 old = summary.at[summary.index[i], "warnings"] if "warnings" in summary else ""
                 old = old if isinstance(old, str) else ""
-                summary.at[summary.index[i], "warnings"] = "; ".join([old] + flags if old else flags)
+                summary.at[summary.index[i], "warnings"] = WARNING_SEPARATOR.join([old] + flags if old else flags)
+                if summary.at[summary.index[i], "status"] == "ok":
+                    summary.at[summary.index[i], "status"] = "warning"
         # place each uncertainty column beside its quantity
         order = list(frames["summary"].columns)
         for q in quantities:
             col, anchor = _column(q, kinds[q]), _after(q)
             pos = order.index(anchor) + 1 if anchor in order else len(order)
             order.insert(pos, col)
-        a = order.index("allowed_input_U_rel") + 1 if "allowed_input_U_rel" in order else len(order)
-        order[a:a] = ["allowed_input_W_conservative", "allowed_input_dBm_conservative"]
+        a = order.index("sar_limited_accepted_U_rel") + 1 if "sar_limited_accepted_U_rel" in order else len(order)
+        order[a:a] = ["sar_limited_accepted_W_conservative", "sar_limited_accepted_dBm_conservative"]
         order.append("uncertainty_source")
         summary = summary.reindex(columns=order)
     frames["summary"] = summary
@@ -146,12 +150,12 @@ def add_budget(frames: dict[str, pd.DataFrame], layout, entries: list[dict], run
 
 
 def _conservative(m: dict, x: dict | None) -> float:
-    """Smallest over the limits of ``allowed / (1 + U_rel(peak SAR of the limit's mass))``."""
+    """Smallest over the limits of ``sar_limited_accepted / (1 + U_rel(peak SAR of the limit's mass))``."""
     if not x:
         return math.nan
     out = []
     for lim in m.get("limits") or []:
-        p = lim.get("max_input_power_W")
+        p = lim.get("sar_limited_accepted_W")
         if not isinstance(p, (int, float)):
             continue
         q = f"peak_SAR_{round(float(lim['mass_kg']) * 1e3, 6):g}g"

@@ -1,10 +1,11 @@
 """Cost estimates remembered per case, so that planning a study again does not mesh every case again.
 
-The mesh and cost estimate of a case (:func:`bodysweep.workflow.cli.case_cost`) is a pure function of the
-case's content, which its ``case_id`` identifies, and of the code that meshes and estimates. The store is
-``results/<study>/cost_estimates.json``::
+The mesh and cost estimate of a case (:func:`bodysweep.workflow.estimate.case_estimate`) is a pure
+function of the case's content, which its ``case_id`` identifies, and of the code that meshes and
+estimates. The store is ``results/<study>/cost_estimates.json``::
 
-    {"code": "<hash of the mesher / cost model / disk estimate source>", "cases": {"<case_id>": {...}, ...}}
+    {"code": "<hash of the mesher / cost model / disk estimate source>",
+     "cases": {"<case_id>": CostEstimate.to_dict(), ...}}
 
 A change of that code (or of a case) gives other keys, so a stale estimate is never used. Missing estimates
 are computed in worker processes when there are many of them (meshing is pure Python and numpy, one case
@@ -20,6 +21,7 @@ from pathlib import Path
 from typing import Callable
 
 from .atomic import write_text
+from .solver.cost import CostEstimate
 
 FILE_NAME = "cost_estimates.json"
 #: below this many missing estimates the work is done in this process (a pool costs about half a second)
@@ -28,19 +30,20 @@ PARALLEL_FROM = 64
 
 def code_signature() -> str:
     """Hash of the source files whose change alters an estimate (mesh, cost model, disk estimate, builders)."""
-    from . import budget
-    from .solver import cost, mesh, settings
+    from . import budget, estimate
+    from .solver import cost, mesh, mesh_fill, settings
     import bodysweep.geometry as geometry
 
     h = hashlib.sha256()
-    for mod in (mesh, cost, settings, budget):
+    for mod in (mesh, mesh_fill, cost, settings, budget, estimate):
         h.update(Path(mod.__file__).read_bytes())
-    h.update(str(getattr(geometry, "BUILDER_VERSION", "")).encode())
+    h.update(str(geometry.BUILDER_VERSION).encode())
     return h.hexdigest()[:16]
 
 
 def load(root: Path) -> dict[str, dict]:
-    """The remembered estimates of a study folder that are valid for this code (empty if none)."""
+    """The remembered estimates (``CostEstimate.to_dict()`` each) of a study folder that are valid for this
+    code (empty if none)."""
     try:
         data = json.loads((Path(root) / FILE_NAME).read_text())
     except (OSError, ValueError):
@@ -50,31 +53,45 @@ def load(root: Path) -> dict[str, dict]:
     return data["cases"]
 
 
-def save(root: Path, estimates: dict[str, dict]) -> None:
-    """Remember ``estimates`` (case_id -> estimate) in an existing study folder; nothing if it does not exist."""
-    root = Path(root)
+def save(root: Path, estimates: dict[str, CostEstimate]) -> None:
+    """Store exactly ``estimates`` (case_id -> estimate) in an existing study folder; nothing if it does not exist."""
+    _write(Path(root), {k: v.to_dict() for k, v in estimates.items()})
+
+
+def remember(root: Path, new: dict[str, CostEstimate]) -> None:
+    """Add ``new`` to the study folder's store, keeping the entries already there that are valid for this code."""
+    stored = load(root)
+    stored.update({k: v.to_dict() for k, v in new.items()})
+    _write(Path(root), stored)
+
+
+def _write(root: Path, plain: dict[str, dict]) -> None:
     if not root.is_dir():
         return
-    clean = {k: {kk: (None if vv != vv else vv) for kk, vv in v.items()} for k, v in estimates.items()}
-    write_text(root / FILE_NAME, json.dumps({"code": code_signature(), "cases": clean}, sort_keys=True))
+    write_text(root / FILE_NAME, json.dumps({"code": code_signature(), "cases": plain}, sort_keys=True))
 
 
-def _restore(est: dict) -> dict:
-    return {k: (float("nan") if v is None else v) for k, v in est.items()}
+def _restore(est: dict) -> CostEstimate | None:
+    """A remembered estimate, or None when the entry does not read as one (then it is computed again)."""
+    try:
+        return CostEstimate.from_dict(est)
+    except (ValueError, TypeError, AttributeError):
+        return None
 
 
-def estimates(dicts: list[dict], known: dict[str, dict], compute: Callable[[dict], dict],
-              workers: int | None = None) -> dict[str, dict | Exception]:
+def estimates(dicts: list[dict], known: dict[str, dict], compute: Callable[[dict], CostEstimate],
+              workers: int | None = None) -> dict[str, CostEstimate | Exception]:
     """Estimates of the cases ``dicts`` (case.json content): from ``known`` where present, else computed.
 
-    Returns case_id -> estimate dict, or the exception raised for a case the mesher refuses.
+    Returns case_id -> estimate, or the exception raised for a case the mesher refuses.
     """
-    out: dict[str, dict | Exception] = {}
+    out: dict[str, CostEstimate | Exception | None] = {}
     todo = []
     for d in dicts:
         cid = d["case_id"]
-        if cid in known:
-            out[cid] = _restore(known[cid])
+        restored = _restore(known[cid]) if cid in known else None
+        if restored is not None:
+            out[cid] = restored
         elif cid not in out:
             todo.append(d)
             out[cid] = None  # placeholder

@@ -16,6 +16,8 @@ from pathlib import Path
 from .atomic import json_text, write_if_changed
 
 PLAN_VERSION = 1
+#: the tables the collect step writes (:mod:`bodysweep.workflow.collect`), each as Parquet and CSV
+TABLE_NAMES = ("summary", "sparams", "sar", "uncertainty")
 
 
 @dataclass(frozen=True)
@@ -59,8 +61,6 @@ class StudyLayout:
 
     def table_files(self) -> list[Path]:
         """The table files the collect step writes (Parquet and CSV of each table)."""
-        from .collect import TABLE_NAMES
-
         return [self.tables_dir / f"{n}.{ext}" for n in TABLE_NAMES for ext in ("parquet", "csv")]
 
 
@@ -72,12 +72,28 @@ def read_plan(layout: StudyLayout) -> dict:
         raise FileNotFoundError(f"{layout.plan_file} does not exist; run `bodysweep run` (or prepare) first") from None
 
 
-def write_plan(layout: StudyLayout, study_name: str, entries: list[dict], uncertainty: dict | None = None) -> bool:
+def write_plan(layout: StudyLayout, study_name: str, entries: list[dict], settings: dict | None = None) -> bool:
     """Write ``plan.json`` if its content changed; True if written.
 
-    ``uncertainty``: the study's uncertainty settings (``plan.json`` key ``uncertainty``, absent without).
+    ``settings`` holds the study's keys that shape tables and report but not results (description,
+    figure of merit, baseline, the exposure limits applied); they are kept under ``"settings"``.
     """
-    doc = {"study": study_name, "plan_version": PLAN_VERSION, "cases": entries}
-    if uncertainty is not None:
-        doc["uncertainty"] = uncertainty
-    return write_if_changed(layout.plan_file, json_text(doc))
+    content = {"study": study_name, "plan_version": PLAN_VERSION, "cases": entries}
+    if settings:
+        content["settings"] = settings
+    return write_if_changed(layout.plan_file, json_text(content))
+
+
+# -- component runs of an uncertainty budget in a plan (workflow/study/uncertainty.py writes them) ----------
+def budget_map(entries: list[dict]) -> dict[str, dict[str, str]]:
+    """``{case id: {component: id of its run}}`` from plan entries (their ``budget`` lists)."""
+    out: dict[str, dict[str, str]] = {}
+    for e in entries:
+        for b in e.get("budget") or []:
+            out.setdefault(b["of"], {})[b["component"]] = e["case_id"]
+    return out
+
+
+def is_budget_run(entry: dict) -> bool:
+    """Whether a plan entry is only a component run (not a case of the study's own sweep)."""
+    return bool(entry.get("budget")) and "uncertainty_run" in (entry.get("parameters") or {})

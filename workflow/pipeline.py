@@ -23,20 +23,24 @@ import subprocess
 import sys
 import time
 from dataclasses import dataclass, field
+from importlib import resources
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from .atomic import json_text, write_if_changed, write_json
 from .layout import StudyLayout, read_plan, write_plan
+from .progress import running_progress
 
 #: statuses a finished case can carry in metrics.json that count as a result (not a failure)
 OK_STATUSES = ("ok", "warning")
 #: per-case states reported by :func:`case_states`
 STATES = ("done", "to run", "changed", "failed")
 
-REPO_ROOT = Path(__file__).resolve().parent.parent
-SNAKEFILE = REPO_ROOT / "Snakefile"
-PROFILES_DIR = Path(__file__).resolve().parent / "profiles"
+#: the installed package's own Snakefile and profiles (package data, not the checkout; a regular
+#: install unpacks them as files, so their paths can be handed to Snakemake)
+_PACKAGE_FILES = Path(str(resources.files("bodysweep.workflow")))
+SNAKEFILE = _PACKAGE_FILES / "Snakefile"
+PROFILES_DIR = _PACKAGE_FILES / "profiles"
 
 
 # -- the study --------------------------------------------------------------------------------------------
@@ -97,6 +101,19 @@ def previous_plan(layout: StudyLayout) -> dict[str, str]:
     return {parameter_key(e.get("parameters", {})): e["case_id"] for e in cases}
 
 
+def study_settings(study) -> dict:
+    """What the tables and the report need from the study file beyond its cases (never part of a case id)."""
+    from .study.schema import study_schema
+
+    sar = study.raw["sar"]
+    default_limits = study_schema()["properties"]["sar"]["properties"]["limits"]["default"]
+    return {"description": study.description, "figure_of_merit": study.raw.get("figure_of_merit", "implant_power"),
+            "baseline": study.raw.get("baseline"), "excite": list(study.excite_ports),
+            "limits": [dict(lim) for lim in sar["limits"]], "limits_are_defaults": sar["limits"] == default_limits,
+            "solver_preset": (study.raw.get("solver") or {}).get("preset", "standard"),
+            "parameter_paths": {n: p.path for n, p in study.parameters.items()}}
+
+
 def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prepared:
     """Write every case folder's ``case.json`` and the study's ``plan.json``, each only if changed."""
     study, layout, entries, dicts = expand_study(study_path, results_dir)
@@ -111,7 +128,11 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
         written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
     from .study.uncertainty import budget_settings
 
-    write_plan(layout, study.name, entries, budget_settings(study.raw))
+    settings = study_settings(study)
+    budget = budget_settings(study.raw)
+    if budget is not None:
+        settings["uncertainty"] = budget
+    write_plan(layout, study.name, entries, settings)
     return Prepared(study, layout, entries, previous, written)
 
 
@@ -332,30 +353,73 @@ def format_duration(s: float) -> str:
 
 def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], log_path: Path,
                   workdir: str | Path = ".", poll_s: float = 3.0,
-                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = ()) -> int:
+                  echo: Callable[[str], None] = print, pass_fds: tuple[int, ...] = (), cluster: bool = False,
+                  detail_s: float = 30.0) -> int:
     """Run Snakemake in a subprocess, its output to ``log_path``; print progress (cases done/total, ETA).
 
+    Every ``detail_s`` seconds it also prints, and appends to ``logs/progress.log``, each running
+    excitation's timesteps, energy decay and time left (:func:`bodysweep.workflow.progress.running_progress`).
+
     ``pass_fds``: file descriptors Snakemake inherits (the study's run lock). Returns Snakemake's exit code.
+    Snakemake runs in a session of its own; a stop signal (SIGINT, SIGTERM, SIGHUP) ends that session
+    (:func:`bodysweep.workflow.interrupt.stop_run`; ``cluster``: the executor submits to SLURM) and raises
+    :class:`~bodysweep.workflow.interrupt.RunInterrupted` carrying the stop report.
     """
+    from .interrupt import PARENT_ENV, RunInterrupted, stop_run, stop_signals_raise
+
     log_path.parent.mkdir(parents=True, exist_ok=True)
     todo = [e for e in entries if not (layout.case_dir(e["case_id"]) / "metrics.json").exists()]
     total, start = len(todo), time.monotonic()
     echo(f"running {total} of {len(entries)} cases (log: {log_path})")
+    since = log_path.stat().st_size if log_path.exists() else 0
+    with open(log_path, "ab") as log, stop_signals_raise():
+        proc = None
+        try:
+            proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
+                                    pass_fds=tuple(pass_fds), start_new_session=True,
+                                    env={**os.environ, PARENT_ENV: str(os.getpid())})
+            return _follow(proc, layout, todo, total, start, echo, poll_s, detail_s)
+        except RunInterrupted as exc:
+            import signal as _signal
+
+            from .interrupt import STOP_SIGNALS
+
+            # a second Ctrl-C must not cut the stop short
+            old = {s: _signal.signal(s, _signal.SIG_IGN) for s in STOP_SIGNALS}
+            try:
+                if proc is not None:
+                    exc.report = stop_run(proc, exc.signum, cluster=cluster, log_path=log_path, log_since=since)
+            finally:
+                for s, h in old.items():
+                    _signal.signal(s, h)
+            raise
+
+
+def _follow(proc, layout: StudyLayout, todo: list[dict], total: int, start: float, echo, poll_s: float,
+            detail_s: float = 30.0) -> int:
+    """Print progress until Snakemake ends; its exit code."""
     last = None
-    with open(log_path, "ab") as log:
-        proc = subprocess.Popen(snakemake_cmd(*args), stdout=log, stderr=subprocess.STDOUT, cwd=str(workdir),
-                                pass_fds=tuple(pass_fds))
-        while True:
-            rc = proc.poll()
-            done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
-            if total and done != last:
-                el = time.monotonic() - start
-                eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
-                echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
-                last = done
-            if rc is not None:
-                return rc
-            time.sleep(poll_s)
+    last_detail = time.monotonic()
+    while True:
+        rc = proc.poll()
+        done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
+        if total and done != last:
+            el = time.monotonic() - start
+            eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""
+            echo(f"  {done}/{total} cases finished, {format_duration(el)} elapsed{eta}")
+            last = done
+        if rc is None and time.monotonic() - last_detail >= detail_s:  # within-case progress
+            last_detail = time.monotonic()
+            detail = running_progress(layout, todo)
+            for line in detail:
+                echo(line)
+            if detail:
+                with open(layout.logs_dir / "progress.log", "a") as plog:
+                    stamp = time.strftime("%Y-%m-%dT%H:%M:%S")
+                    plog.write("".join(f"{stamp} {ln.strip()}\n" for ln in detail))
+        if rc is not None:
+            return rc
+        time.sleep(poll_s)
 
 
 # -- the Snakefile's view ----------------------------------------------------------------------------------

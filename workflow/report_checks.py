@@ -1,27 +1,12 @@
-"""Report sections on how far a study's numbers can be trusted: per-case warnings and the uncertainty budget.
+"""Report section on how far a study's numbers can be trusted: the uncertainty budget (per-case warnings
+are listed by :mod:`.report` itself).
 
 Kept apart from :mod:`.report` (plots and the case list); :func:`.report.write_report` appends the lines
-these functions return.
+:func:`budget_lines` returns.
 """
 from __future__ import annotations
 
 import pandas as pd
-
-
-def warning_lines(summary: pd.DataFrame) -> list[str]:
-    """A ``## Warnings`` section listing each finished case's warnings (empty list when there are none)."""
-    if "warnings" not in summary:
-        return []
-    flagged = summary[summary["warnings"].fillna("").astype(str).str.len() > 0]
-    if flagged.empty:
-        return []
-    lines = ["", "## Warnings", "",
-             f"{len(flagged)} of {len(summary)} cases finished with numbers that may be wrong (status stays `ok`; "
-             "column `warnings` of the summary table):", ""]
-    for _, r in flagged.iterrows():
-        for w in str(r["warnings"]).split("; "):
-            lines.append(f"- `{r['case_id']}` ({r['label']}): {w}")
-    return lines
 
 
 def _fmt(v, spec: str) -> str:
@@ -33,13 +18,13 @@ def _fmt(v, spec: str) -> str:
 
 
 def plot_error_bars(summary: pd.DataFrame, path, max_cases: int = 40):
-    """Peak SAR per mass and allowed input power of each case with their expanded uncertainty (k = 2) as bars."""
+    """Peak SAR per mass and SAR-limited accepted power of each case with their expanded uncertainty (k = 2) as bars."""
     import numpy as np
 
-    from .report import _plt, _save
+    from .report_plots import _plt, _save
 
     sar_cols = [c for c in summary.columns if c.startswith("peak_SAR_") and c.endswith("_U_rel")]
-    ok = summary[(summary["status"] == "ok") & summary[sar_cols].notna().any(axis=1)] if sar_cols else summary.iloc[:0]
+    ok = summary[summary["status"].isin(["ok", "warning"]) & summary[sar_cols].notna().any(axis=1)] if sar_cols else summary.iloc[:0]
     if ok.empty:
         return None
     ok = ok.head(max_cases)
@@ -52,13 +37,13 @@ def plot_error_bars(summary: pd.DataFrame, path, max_cases: int = 40):
         v = ok[f"peak_SAR_{mass}_W_per_kg_per_W"].to_numpy(float)
         a1.errorbar(x + (k - (len(sar_cols) - 1) / 2) * w, v, yerr=v * ok[uc].to_numpy(float), fmt="o", capsize=3,
                     label=f"{mass} average")
-    p = ok["allowed_input_dBm"].to_numpy(float)
-    lo = p - ok["allowed_input_dBm_conservative"].to_numpy(float)
+    p = ok["sar_limited_accepted_dBm"].to_numpy(float)
+    lo = p - ok["sar_limited_accepted_dBm_conservative"].to_numpy(float)
     own = (ok["uncertainty_source"] == "own").to_numpy()
     for sel, mfc, text in ((own, "C2", "own budget"), (~own, "white", "study-level budget (no own runs)")):
         if sel.any():
             a2.errorbar(x[sel], p[sel], yerr=[lo[sel], np.zeros(int(sel.sum()))], fmt="s", capsize=3, color="C2",
-                        mfc=mfc, label=f"allowed input power ({text}); bar: down to the conservative value")
+                        mfc=mfc, label=f"SAR-limited accepted power ({text}); bar: down to the conservative value")
     labels = ok["label"].astype(str).where(ok["label"].astype(str) != "", ok["case_id"])
     for ax in (a1, a2):
         ax.set_xticks(x, labels, rotation=70, ha="right", fontsize=7)
@@ -66,8 +51,8 @@ def plot_error_bars(summary: pd.DataFrame, path, max_cases: int = 40):
         ax.legend(fontsize=7)
     a1.set_ylabel("peak averaged SAR (W/kg per W accepted)")
     a1.set_title("Peak SAR, bars: expanded uncertainty (k = 2)", fontsize=10)
-    a2.set_ylabel("allowed input power (dBm)")
-    a2.set_title("SAR-limited input power", fontsize=10)
+    a2.set_ylabel("SAR-limited accepted power at port 1 (dBm)")
+    a2.set_title("SAR-limited accepted power", fontsize=10)
     return _save(fig, path)
 
 

@@ -35,6 +35,8 @@ from pathlib import Path
 from .layout import StudyLayout
 
 LOCK_NAME = "run.lock"
+#: environment variable naming the ``bodysweep run`` that started a Snakemake process
+PARENT_ENV = "BODYSWEEP_RUN_PID"
 #: the engine's scratch folder inside ``excite_<p>/`` (see :mod:`.solver.run`)
 SCRATCH_NAME = ".engine_run"
 
@@ -106,12 +108,11 @@ class StudyLock:
         return self
 
     def release(self) -> None:
+        """Close this process's descriptor. No ``LOCK_UN``: that would free the lock also for a child
+        sharing the open file description (a Snakemake still alive); the kernel frees it with the last one."""
         if self.fd is not None:
-            try:
-                fcntl.flock(self.fd, fcntl.LOCK_UN)
-            finally:
-                os.close(self.fd)
-                self.fd = None
+            os.close(self.fd)
+            self.fd = None
 
     def __enter__(self) -> "StudyLock":
         return self.acquire() if self.fd is None else self
@@ -222,6 +223,34 @@ def other_snakemake_runs(layout: StudyLayout, exclude: tuple[int, ...] = ()) -> 
         if _study_root_of(args, cwd) == root:
             found.append(pid)
     return sorted(found)
+
+
+def started_by(pid: int) -> int | None:
+    """The pid of the ``bodysweep run`` that started process ``pid`` (from its environment), else None."""
+    try:
+        env = Path(f"/proc/{pid}/environ").read_bytes().split(b"\0")
+    except OSError:
+        return None
+    for item in env:
+        if item.startswith(PARENT_ENV.encode() + b"="):
+            try:
+                return int(item.split(b"=", 1)[1])
+            except ValueError:
+                return None
+    return None
+
+
+def describe_snakemake(pids: list[int]) -> str:
+    """Who runs the study: ``snakemake (pid N) started by bodysweep run (pid M, ...)`` or ``... outside bodysweep``."""
+    parts = []
+    for pid in pids:
+        parent = started_by(pid)
+        if parent is None:
+            parts.append(f"snakemake (pid {pid}) started outside bodysweep")
+        else:
+            state = "still running" if _alive(parent) else "which has ended"
+            parts.append(f"snakemake (pid {pid}) started by bodysweep run (pid {parent}, {state})")
+    return " and ".join(parts)
 
 
 # -- after an interrupted run -----------------------------------------------------------------------------

@@ -101,9 +101,9 @@ def solve(case_dir: str | Path, port: int, threads: int = 1) -> dict:
         return out
     t0 = time.monotonic()
     try:
-        from .solver.run import solve_excitation
+        from .solver.backend import get_backend
 
-        solve_excitation(case_dir, int(port), int(threads))
+        get_backend().solve_excitation(case_dir, int(port), int(threads))
     except Exception as exc:
         traceback.print_exc()
         out = {"status": FAILED, "reason": f"solve port {port}: {_one_line(exc)}", "port": int(port),

@@ -46,9 +46,11 @@ def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
             for name in ON_SUCCESS:
-                if name == "sparams.s2p" and (d / "sparams.s1p").exists():  # one-port scene (no implant)
-                    continue
+                if name == "sparams.s2p" and (d / "sparams.s1p").exists() and 2 not in entry.get("ports", [1]):
+                    continue  # one-port file: a scene without implant, or only port 1 excited
                 if not (d / name).exists():
+                    if name == "sparams.s2p" and 2 not in entry.get("ports", [1]):
+                        name = "sparams.s1p"
                     out.append(f"{cid}: status {m.get('status')} but {name} missing")
             for p in entry.get("ports", [1]):
                 if not (d / f"excite_{p}" / "status.json").exists():
@@ -108,12 +110,21 @@ def verify_metrics(d, cid: str, m: dict) -> list[str]:
                 for row in m.get("sar") or []:
                     name = f"avg_{float(row['mass_kg']) * 1e3:g}g"
                     peak = row.get("peak_W_per_kg_per_W")
-                    if peak is None or f"sar/{name}" not in h5:
+                    if "grid_peak_W_per_kg_per_W" not in row:  # written before post-processing version 3
+                        row = {**row, "grid_peak_W_per_kg_per_W": peak}
+                    grid = row.get("grid_peak_W_per_kg_per_W")
+                    flush = row.get("flush_peak_W_per_kg_per_W")
+                    # the reported peak is the larger of the voxel-grid peak and the best flush cube
+                    larger = max((v for v in (grid, flush) if v is not None), default=None)
+                    if peak is not None and (larger is None or not _close(float(peak), float(larger))):
+                        out.append(f"{cid}: metrics.json peak SAR {row['mass_kg'] * 1e3:g} g = {peak:.6g} W/kg per W "
+                                   f"is not the larger of its grid ({grid}) and flush ({flush}) peaks")
+                    if grid is None or f"sar/{name}" not in h5:
                         continue
                     top = float(np.nanmax(h5[f"sar/{name}"][()]))
-                    if not _close(float(peak), top):
-                        out.append(f"{cid}: metrics.json peak SAR {row['mass_kg'] * 1e3:g} g = {peak:.6g} W/kg per W "
-                                   f"differs from the maximum of result.h5 sar/{name} ({top:.6g})")
+                    if not _close(float(grid), top):
+                        out.append(f"{cid}: metrics.json grid peak SAR {row['mass_kg'] * 1e3:g} g = {grid:.6g} W/kg "
+                                   f"per W differs from the maximum of result.h5 sar/{name} ({top:.6g})")
         except Exception as exc:
             out.append(f"{cid}: result.h5 unreadable ({' '.join(str(exc).split())[:200]})")
     return out
@@ -183,7 +194,7 @@ def verify_tables(layout: StudyLayout, entries: list[dict]) -> list[str]:
         for c in df.columns:
             if not _same(stored[c].reset_index(drop=True), df[c].reset_index(drop=True)):
                 out.append(f"tables: {name}.{c} differs from the case files (collect again)")
-    from .study.uncertainty import is_budget_run
+    from .layout import is_budget_run
 
     ids = set(e["case_id"] for e in entries if not is_budget_run(e))  # component runs are only in the budget
     if "summary" in fresh and (layout.tables_dir / "summary.parquet").exists():

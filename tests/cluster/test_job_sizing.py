@@ -5,9 +5,8 @@ import math
 
 import pytest
 
-from bodysweep.workflow.cluster import (
-    MIB, CaseCost, JobSizing, cells2threads, cost2resources, resources_for_case,
-)
+from bodysweep.workflow.cluster import MIB, JobSizing, cells2threads, cost2resources, resources_for_case
+from bodysweep.workflow.solver.cost import CostEstimate
 
 
 def test_mib_is_1024_based():
@@ -16,7 +15,7 @@ def test_mib_is_1024_based():
 
 
 def test_request_by_hand():
-    cost = CaseCost(cells=50_000, memory_bytes=200 * MIB, cpu_seconds=300.0)
+    cost = CostEstimate(cells=50_000, memory_bytes=200 * MIB, cpu_seconds=300.0)
     sizing = JobSizing(memory_factor=1.5, memory_base_mb=512, runtime_factor=2.0, runtime_base_s=60.0,
                        parallel_efficiency=0.5, retry_growth=2.0, min_runtime_min=1)
     r = cost2resources(cost, threads=3, attempt=1, sizing=sizing)
@@ -28,18 +27,18 @@ def test_request_by_hand():
 
 
 def test_runtime_rounds_up_to_whole_minutes_and_has_a_floor():
-    cost = CaseCost(cells=1000, memory_bytes=1.0, cpu_seconds=61.0)
+    cost = CostEstimate(cells=1000, memory_bytes=1.0, cpu_seconds=61.0)
     s = JobSizing(runtime_factor=1.0, runtime_base_s=0.0, min_runtime_min=1)
     # analytic: 61 s is more than one minute -> 2 min (SLURM time limits are whole minutes, sbatch man page)
     assert cost2resources(cost, 1, 1, s)["runtime"] == 2
-    tiny = CaseCost(cells=1000, memory_bytes=1.0, cpu_seconds=1.0)
+    tiny = CostEstimate(cells=1000, memory_bytes=1.0, cpu_seconds=1.0)
     assert cost2resources(tiny, 1, 1, JobSizing(min_runtime_min=5))["runtime"] == 5
 
 
 def test_more_memory_never_less_request():
     # analytic: the request is monotonic in the estimate
     s = JobSizing()
-    reqs = [cost2resources(CaseCost(10, m * MIB, 10.0), 1, 1, s)["mem_mb"] for m in (1, 10, 100, 1000)]
+    reqs = [cost2resources(CostEstimate(10, m * MIB, 10.0), 1, 1, s)["mem_mb"] for m in (1, 10, 100, 1000)]
     assert reqs == sorted(reqs) and len(set(reqs)) == 4
     assert reqs[-1] >= math.ceil(1000 * s.memory_factor)
 
@@ -64,15 +63,26 @@ def test_resources_from_mapping():
     (dict(cells=0, memory_bytes=1.0, cpu_seconds=1.0), "cells"),
     (dict(cells=10, memory_bytes=-1.0, cpu_seconds=1.0), "memory_bytes"),
     (dict(cells=10, memory_bytes=1.0, cpu_seconds=float("nan")), "cpu_seconds"),
+    (dict(cells=10, memory_bytes=1.0, cpu_seconds=1.0, n_excitations=0), "n_excitations"),
+    (dict(cells=10, memory_bytes=1.0, cpu_seconds=1.0, disk_bytes=-1.0), "disk_bytes"),
 ])
 def test_bad_cost_names_the_field(bad, word):
     with pytest.raises(ValueError, match=word):
-        CaseCost(**bad)
+        CostEstimate(**bad)
 
 
 def test_estimate_missing_keys_named():
     with pytest.raises(ValueError, match="cpu_seconds"):
-        CaseCost.from_any({"cells": 10, "memory_bytes": 5})
+        CostEstimate.from_dict({"cells": 10, "memory_bytes": 5})
+
+
+def test_one_job_runs_one_excitation():
+    # analytic: a two-port case of 600 CPU s runs as two jobs of 300 s each; with the sizing of
+    # test_request_by_hand that is 6 min per job, as for a one-port case of 300 s
+    sizing = JobSizing(memory_factor=1.5, memory_base_mb=512, runtime_factor=2.0, runtime_base_s=60.0,
+                       parallel_efficiency=0.5, retry_growth=2.0, min_runtime_min=1)
+    two = CostEstimate(cells=50_000, memory_bytes=200 * MIB, cpu_seconds=600.0, n_excitations=2)
+    assert cost2resources(two, threads=3, attempt=1, sizing=sizing) == {"mem_mb": 812, "runtime": 6, "threads": 3}
 
 
 @pytest.mark.parametrize("field, value", [("memory_factor", 0.5), ("max_threads", 0), ("retry_growth", 9.0),
@@ -83,7 +93,7 @@ def test_bad_sizing_names_the_field(field, value):
 
 
 def test_bad_attempt_and_threads():
-    c = CaseCost(10, 1.0, 1.0)
+    c = CostEstimate(10, 1.0, 1.0)
     with pytest.raises(ValueError, match="attempt"):
         cost2resources(c, 1, 0)
     with pytest.raises(ValueError, match="threads"):

@@ -6,7 +6,7 @@ import json
 import jsonschema
 import pytest
 
-from bodysweep.geometry import antennas, concentrators, examples, phantoms, scene_schema
+from bodysweep.geometry import antennas, concentrators, examples, phantoms, planar, scene_schema
 from bodysweep.geometry.scene import Scene
 from bodysweep.geometry.units import from_edge_units
 
@@ -30,7 +30,7 @@ def test_sample_scene_validates_and_loads(make):
     assert s.build(433e6).ports
 
 
-DIMENSIONLESS = {"eps_r", "loss_tangent", "turns", "segments_per_turn", "count", "segments"}
+DIMENSIONLESS = {"eps_r", "loss_tangent", "turns", "segments_per_turn", "count", "segments", "legs"}
 UNIT_SUFFIXES = ("_mm", "_MHz", "_deg", "_ohm", "_S_per_m", "_kg_m3")
 
 
@@ -67,6 +67,7 @@ VARIANTS = {
     "layered_cylinder": phantoms.LayeredCylinder, "concentrator_rod_pair": concentrators.RodPair,
     "concentrator_crossed_pairs": concentrators.CrossedPairs, "concentrator_rod_array": concentrators.RodArray,
     "concentrator_ring": concentrators.Ring, "concentrator_rod": concentrators.Rod,
+    "implant_inverted_f": planar.InvertedF, "implant_meander": planar.MeanderLine, "implant_spiral": planar.Spiral,
 }
 
 

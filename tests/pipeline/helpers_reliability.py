@@ -69,12 +69,57 @@ def group_alive(pgid: int) -> list[int]:
     return alive
 
 
+def _stat_fields(pid: int) -> list[str] | None:
+    try:
+        return Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    except OSError:
+        return None
+
+
+def descendants(pid: int) -> list[int]:
+    """Live pids below ``pid`` in the parent tree (from /proc/<pid>/stat, field ppid)."""
+    parent = {}
+    for d in Path("/proc").iterdir():
+        if d.name.isdigit():
+            f = _stat_fields(int(d.name))
+            if f and f[0] != "Z":
+                parent[int(d.name)] = int(f[1])
+    out, todo = [], [pid]
+    while todo:
+        p = todo.pop()
+        kids = [c for c, pp in parent.items() if pp == p]
+        out += kids
+        todo += kids
+    return sorted(out)
+
+
+def session_alive(sid: int) -> list[int]:
+    """Live pids (zombies not counted) of session ``sid``."""
+    out = []
+    for d in Path("/proc").iterdir():
+        if d.name.isdigit():
+            f = _stat_fields(int(d.name))
+            if f and f[0] != "Z" and int(f[3]) == sid:
+                out.append(int(d.name))
+    return out
+
+
 def kill_group(proc: subprocess.Popen, timeout: float = 20) -> None:
-    """SIGKILL the whole process group of ``proc`` and wait until none of it is alive."""
+    """SIGKILL everything of a `bodysweep run`: the sessions its children lead (`run` starts Snakemake in
+    a session of its own) and its process group; wait until none of it is alive."""
     pgid = os.getpgid(proc.pid)
+    own = os.getsid(0)
+    sessions = {int(f[3]) for f in map(_stat_fields, descendants(proc.pid)) if f} - {own}
+    for sid in sessions:
+        for pid in session_alive(sid):
+            try:
+                os.kill(pid, signal.SIGKILL)
+            except ProcessLookupError:
+                pass
     os.killpg(pgid, signal.SIGKILL)
     proc.wait(timeout=timeout)
-    wait_for(lambda: not group_alive(pgid), timeout, f"process group {pgid} to end")
+    wait_for(lambda: not group_alive(pgid) and not any(session_alive(s) for s in sessions), timeout,
+             f"process group {pgid} and sessions {sorted(sessions)} to end")
 
 
 def final_files(root: Path) -> list[Path]:

@@ -94,3 +94,38 @@ def test_half_domain_on_an_asymmetric_plane_is_refused_before_any_job(tmp_path, 
     assert list(work.iterdir()) == []
     ok = _study(tmp_path, _mirror("x"))
     assert cli.main(["check", str(ok)]) == 0
+
+
+def _feed_gaps(gap_mm):
+    def edit(d):  # a 2.5 mm skin, the external feed gap 2 mm and the implant's gap_mm, both centred at x = 0
+        d["scene"]["phantom"]["layers"][0]["thickness_mm"] = 2.5
+        d["scene"]["implant"]["feed_gap_mm"] = gap_mm
+    return edit
+
+
+def test_check_accepts_two_feed_gaps_at_nearby_positions(tmp_path, monkeypatch, capsys):
+    """Gap ends 0.25 mm apart (under the 0.3125 mm merge threshold): both stay mesh lines, check passes."""
+    study = _study(tmp_path, _feed_gaps(1.5))
+    monkeypatch.chdir(tmp_path)
+    assert cli.main(["check", str(study)]) == 0, capsys.readouterr().err
+    assert "2 meshes the solver accepts" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("command", ["check", "plan", "run"])
+def test_a_mesh_the_solver_would_refuse_is_refused_before_any_job(tmp_path, monkeypatch, capsys, command):
+    """Gap ends 0.01 mm apart: no usable mesh; one line naming the case and the reason in mm, exit 2, nothing
+    written (plan lists it as without estimate instead, exit 0)."""
+    study = _study(tmp_path, _feed_gaps(1.98))
+    work = tmp_path / "work"
+    work.mkdir()
+    monkeypatch.chdir(work)
+    rc = cli.main([command, str(study)])
+    cap = capsys.readouterr()
+    if command == "plan":
+        assert rc == 0 and "no estimate: port lines at -1.0000 mm (port 1 gap end)" in cap.out
+        return
+    assert rc == 2, cap.out + cap.err
+    (line,) = [ln for ln in cap.err.splitlines() if ln.strip()]
+    assert line.startswith("bodysweep: error: case ") and "mesh: port lines at -1.0000 mm (port 1 gap end) and " \
+        "-0.9900 mm (port 2 gap end) are only 0.0100 mm apart" in line, line
+    assert list(work.iterdir()) == []

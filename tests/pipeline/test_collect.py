@@ -13,10 +13,15 @@ from bodysweep.workflow.layout import StudyLayout, write_plan
 from bodysweep.workflow.post.sparams import write_touchstone
 
 SUMMARY_REQUIRED = {"case_id", "status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB",
-                    "allowed_input_W", "allowed_input_dBm", "delivered_W", "delivered_dBm",
-                    "matched_link_efficiency_dB", "runtime_s", "cells"}
+                    "Zin1_re_ohm", "Zin1_im_ohm", "Zin2_re_ohm", "Zin2_im_ohm", "mismatch_loss_port1_dB",
+                    "rollett_K", "port2_reason", "sar_limited_accepted_W", "sar_limited_accepted_dBm",
+                    "deciding_limit", "implant_power_unmatched_dBm", "implant_power_tx_matched_W",
+                    "implant_power_both_matched_dBm", "figure_of_merit", "figure_of_merit_value",
+                    "max_available_gain_dB", "warnings", "runtime_s", "cells"}
 SPARAMS_REQUIRED = ["case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg"]
-SAR_REQUIRED = ["case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "x_mm", "y_mm", "z_mm"]
+SAR_REQUIRED = ["case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
+                "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
+                "grid_peak_W_per_kg_per_W", "flush_peak_W_per_kg_per_W", "flush_face", "flush_search_converged"]
 
 
 def test_decibel_conversions():
@@ -57,13 +62,26 @@ def _study(tmp_path, cases):
 def _ok_metrics(f_Hz, s21):
     return {"status": "ok", "reason": "", "frequency_Hz": f_Hz,
             "S11": [0.3, -0.4], "S21": [s21.real, s21.imag], "S12": [s21.real, s21.imag], "S22": [0.0, 0.5],
-            "sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": 12.5, "location_m": [0.001, -0.002, -0.004]},
-                    {"mass_kg": 0.01, "peak_W_per_kg_per_W": 5.0, "location_m": [0.0, 0.0, -0.005]}],
+            "sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": 12.5, "peak_from": "flush",
+                     "cube_centre_m": [0.001, -0.002, -0.005], "cube_side_m": 0.01,
+                     "voxel_centre_m": [0.0012, -0.0021, -0.0005], "grid_peak_W_per_kg_per_W": 12.1,
+                     "flush_peak_W_per_kg_per_W": 12.5, "flush_face": "+z", "flush_search_converged": False},
+                    {"mass_kg": 0.01, "peak_W_per_kg_per_W": 5.0, "peak_from": "grid",
+                     "cube_centre_m": [0.0, 0.0, -0.011], "cube_side_m": 0.0215,
+                     "voxel_centre_m": [0.0, 0.0, -0.005], "grid_peak_W_per_kg_per_W": 5.0,
+                     "flush_peak_W_per_kg_per_W": None, "flush_face": None}],
             "limits": [{"mass_kg": 0.001, "limit_W_per_kg": 1.6, "source": "limit one",
-                        "max_input_power_W": 1.6 / 12.5, "delivered_power_W": 1.6 / 12.5 * 1e-3},
+                        "sar_limited_accepted_W": 1.6 / 12.5,
+                        "implant_power_W": {"unmatched": 1.6 / 12.5 * 0.7e-3, "tx_matched": 1.6 / 12.5 * 1e-3,
+                                            "both_matched": 1.6 / 12.5 * 2e-3}},
                        {"mass_kg": 0.01, "limit_W_per_kg": 2.0, "source": "limit two",
-                        "max_input_power_W": 2.0 / 5.0, "delivered_power_W": 2.0 / 5.0 * 1e-3}],
-            "matched_link_efficiency": 1e-3, "runtime_s": 4.0, "cells": 20000, "timesteps": 3000,
+                        "sar_limited_accepted_W": 2.0 / 5.0,
+                        "implant_power_W": {"unmatched": 2.0 / 5.0 * 0.7e-3, "tx_matched": 2.0 / 5.0 * 1e-3,
+                                            "both_matched": 2.0 / 5.0 * 2e-3}}],
+            "ports": {"Zin1_ohm": [20.0, -30.0], "Zin2_ohm": [5.0, 60.0], "mismatch_loss_port1_dB": 1.25,
+                      "mismatch_loss_port2_dB": 2.5, "rollett_K": 40.0, "port2_reason": None},
+            "warnings": ["something to know"],
+            "max_available_gain": 1e-3, "runtime_s": 4.0, "cells": 20000, "timesteps": 3000,
             "decay_reached": True}
 
 
@@ -84,14 +102,25 @@ def test_tables_columns_units_and_values(tmp_path):
     assert SUMMARY_REQUIRED <= set(sm.columns)
     assert {"scene.implant.depth_mm", "scene.external"} <= set(sm.columns)  # every swept parameter
     assert {"peak_SAR_1g_W_per_kg_per_W", "peak_SAR_10g_W_per_kg_per_W"} <= set(sm.columns)
-    assert {"allowed_input_W_1g_1.6W_per_kg", "allowed_input_dBm_10g_2W_per_kg"} <= set(sm.columns)
+    assert {"sar_limited_accepted_W_1g_1.6W_per_kg", "sar_limited_accepted_dBm_10g_2W_per_kg",
+            "limit_source_1g_1.6W_per_kg"} <= set(sm.columns)
+    assert not any(c.startswith(("allowed_input", "delivered_", "matched_link")) for c in sm.columns)  # old names gone
     ok = sm.set_index("case_id").loc["aaa"]
     assert ok["S21_dB"] == pytest.approx(20 * np.log10(0.01))  # analytic: 20 log10 |S21|
     assert ok["S11_dB"] == pytest.approx(20 * np.log10(0.5))
     # the most restrictive limit decides (analytic: min over limits of limit / peak SAR)
-    assert ok["allowed_input_W"] == pytest.approx(min(1.6 / 12.5, 2.0 / 5.0))
-    assert ok["allowed_input_dBm"] == pytest.approx(10 * np.log10(1.6 / 12.5 / 1e-3))
-    assert ok["matched_link_efficiency_dB"] == pytest.approx(-30.0)
+    assert ok["sar_limited_accepted_W"] == pytest.approx(min(1.6 / 12.5, 2.0 / 5.0))
+    assert ok["sar_limited_accepted_dBm"] == pytest.approx(10 * np.log10(1.6 / 12.5 / 1e-3))
+    assert ok["deciding_limit"] == "1g_1.6W_per_kg"
+    # implant powers of the deciding limit, in dBm = 10 log10(P / 1 mW) (common practice)
+    assert ok["implant_power_tx_matched_dBm"] == pytest.approx(10 * np.log10(1.6 / 12.5 * 1e-3 / 1e-3))
+    assert ok["implant_power_both_matched_W"] == pytest.approx(1.6 / 12.5 * 2e-3)
+    # default figure of merit: both ends matched when available
+    assert ok["figure_of_merit"] == "implant_power_both_matched_dBm"
+    assert ok["figure_of_merit_value"] == pytest.approx(ok["implant_power_both_matched_dBm"])
+    assert (ok["Zin1_re_ohm"], ok["Zin1_im_ohm"], ok["rollett_K"]) == (20.0, -30.0, 40.0)
+    assert ok["max_available_gain_dB"] == pytest.approx(-30.0)
+    assert ok["warnings"] == "something to know" and ok["port2_reason"] == ""
     bad = sm.set_index("case_id").loc["bbb"]
     assert bad["status"] == "failed" and "something broke" in bad["reason"]
     assert math.isnan(bad["S21_dB"])
@@ -109,7 +138,13 @@ def test_tables_columns_units_and_values(tmp_path):
 
     assert list(sar.columns) == SAR_REQUIRED
     r = sar[(sar.case_id == "aaa") & np.isclose(sar.mass_g, 1.0)].iloc[0]
-    assert (r.x_mm, r.y_mm, r.z_mm) == pytest.approx((1.0, -2.0, -4.0))
+    assert (r.cube_x_mm, r.cube_y_mm, r.cube_z_mm, r.cube_side_mm) == pytest.approx((1.0, -2.0, -5.0, 10.0))
+    assert (r.voxel_x_mm, r.voxel_y_mm, r.voxel_z_mm) == pytest.approx((1.2, -2.1, -0.5))
+    assert (r.peak_from, r.flush_face) == ("flush", "+z")
+    assert not r.flush_search_converged  # a search cut short is flagged in the table
+    assert (r.grid_peak_W_per_kg_per_W, r.flush_peak_W_per_kg_per_W) == pytest.approx((12.1, 12.5))
+    r10 = sar[(sar.case_id == "aaa") & np.isclose(sar.mass_g, 10.0)].iloc[0]
+    assert r10.peak_from == "grid" and math.isnan(r10.flush_peak_W_per_kg_per_W)  # no flush cube: empty
     assert r.frequency_MHz == pytest.approx(403.0)
 
 
@@ -133,3 +168,40 @@ def test_write_if_changed_keeps_mtime(tmp_path):
     assert p.stat().st_mtime_ns == t
     assert write_if_changed(p, json_text({"a": 2}))
     assert json.loads(p.read_text()) == {"a": 2}
+
+
+def test_figure_of_merit_falls_back_to_port1_matched_without_port2(tmp_path):
+    m = _ok_metrics(403e6, 0.01 + 0j)
+    for lim in m["limits"]:
+        lim["implant_power_W"]["both_matched"] = None
+    m["ports"]["port2_reason"] = "port 2 not excited"
+    layout = _study(tmp_path, [("aaa", {"frequency_MHz": 403.0}, m), ("bbb", {"frequency_MHz": 915.0},
+                                                                         _ok_metrics(915e6, 0.02 + 0j))])
+    # one case without the both-ends figure puts the whole study on the port-1-matched basis
+    sm = collect_frames(layout)["summary"]
+    assert (sm["figure_of_merit"] == "implant_power_tx_matched_dBm").all()
+    np.testing.assert_allclose(sm["figure_of_merit_value"], sm["implant_power_tx_matched_dBm"])
+    row = sm.iloc[0]
+    assert "not excited" in row["port2_reason"]
+    assert math.isnan(row["implant_power_both_matched_dBm"])
+    row = collect_frames(layout, merit="S21")["summary"].iloc[0]
+    assert row["figure_of_merit"] == "S21_dB" and row["figure_of_merit_value"] == pytest.approx(-40.0)
+
+
+def test_metrics_of_the_earlier_format_still_collect(tmp_path):
+    # a finished case whose metrics.json predates the port figures: same quantities under the old keys
+    m = _ok_metrics(403e6, 0.01 + 0j)
+    for lim in m["limits"]:
+        p = lim.pop("sar_limited_accepted_W")
+        lim.pop("implant_power_W")
+        lim.update(max_input_power_W=p, delivered_power_W=p * 1e-3)
+    m.pop("ports"), m.pop("max_available_gain"), m.pop("warnings")
+    m["matched_link_efficiency"] = 2e-3
+    layout = _study(tmp_path, [("aaa", {"frequency_MHz": 403.0}, m)])
+    row = collect_frames(layout)["summary"].iloc[0]
+    p = 1.6 / 12.5
+    assert row["sar_limited_accepted_W"] == pytest.approx(p)
+    assert row["implant_power_tx_matched_W"] == pytest.approx(p * 1e-3)
+    assert row["implant_power_both_matched_W"] == pytest.approx(p * 2e-3)
+    assert row["implant_power_unmatched_W"] == pytest.approx(p * 1e-4)  # |S21|^2 = 1e-4 (arithmetic)
+    assert "metrics.json written before port figures" in row["warnings"] and math.isnan(row["Zin1_re_ohm"])

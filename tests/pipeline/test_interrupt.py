@@ -16,14 +16,23 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from helpers_reliability import (fingerprint, final_files, group_alive, kill_group, open_every_file, plan_ids, run,
-                                 start_run, tiny_study, wait_for)
+from helpers_reliability import (descendants, fingerprint, final_files, kill_group, open_every_file, plan_ids, run,
+                                 session_alive, start_run, tiny_study, wait_for)
 
 pytestmark = [pytest.mark.pipeline, pytest.mark.timeout(600)]
 
 
-def _solver_child_alive(pgid: int) -> bool:
-    for pid in group_alive(pgid):
+def run_processes(proc) -> list[int]:
+    """Live pids of a `bodysweep run`: itself, its descendants and every process of the sessions they lead
+    (Snakemake runs in a session of its own; orphans keep their session)."""
+    pids = {proc.pid, *descendants(proc.pid)}
+    for sid in {p for p in pids}:
+        pids.update(session_alive(sid))
+    return sorted(p for p in pids if Path(f"/proc/{p}").exists())
+
+
+def _solver_child_alive(proc) -> bool:
+    for pid in run_processes(proc):
         try:
             args = Path(f"/proc/{pid}/cmdline").read_bytes().split(b"\0")
         except OSError:
@@ -45,7 +54,6 @@ def test_sigkill_mid_solve_then_rerun(tmp_path):
 
     tiny_study(study, "tiny_kill", depths=(6, 9))
     proc = start_run(study, tmp_path, "--cores", "2")
-    pgid = os.getpgid(proc.pid)
     try:
         def killed_case_running():
             if not (root / "plan.json").exists():
@@ -55,7 +63,7 @@ def test_sigkill_mid_solve_then_rerun(tmp_path):
                 return None
             exc = root / "cases" / new[0] / "excite_1"
             running = (exc / ".engine_run" / "sim").is_dir() and not (exc / "status.json").exists()
-            return new[0] if running and _solver_child_alive(pgid) else None
+            return new[0] if running and _solver_child_alive(proc) else None
 
         killed_id = wait_for(killed_case_running, 240, "the new case's engine to run", proc=proc)
     finally:
@@ -66,7 +74,7 @@ def test_sigkill_mid_solve_then_rerun(tmp_path):
 
     # nothing half-written under a final name: every file opens with its format's own reader
     counts = open_every_file(root)
-    assert counts[".json"] >= 4 and counts[".h5"] >= 3 and counts[".s2p"] == 1, counts
+    assert counts[".json"] >= 4 and counts[".h5"] >= 3 and counts[".s1p"] == 1, counts
     assert not (killed_dir / "excite_1" / "status.json").exists()
     assert not (killed_dir / "metrics.json").exists()
     assert fingerprint(done_dir) == before  # the killed run did not touch the finished case

@@ -47,6 +47,25 @@ def test_round_trip(work, capsys):
     for _, r in summary.iterrows():
         assert r["status"] == "ok" or r["reason"]  # a failure always carries its reason
 
+    # every case's Touchstone file reads in scikit-rf with no warning and holds no NaN (only what was
+    # computed: the tiny study excites port 1 only, so a one-port file)
+    import warnings
+
+    import numpy as np
+    import skrf
+
+    for cid in summary.loc[summary["status"].isin(["ok", "warning"]), "case_id"]:
+        files = sorted(layout.case_dir(cid).glob("sparams.s*p"))
+        assert [f.name for f in files] == ["sparams.s1p"], files
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            ntw = skrf.Network(str(files[0]))
+        assert np.all(np.isfinite(ntw.s)) and "nan" not in files[0].read_text().lower()
+        assert "only port 1 was excited" in ntw.comments
+        # S21 over the band still reaches the long table (from result.h5)
+        sp = pd.read_parquet(layout.tables_dir / "sparams.parquet")
+        assert ((sp.case_id == cid) & (sp.i == 2) & (sp.j == 1)).sum() == 11  # n_band_points of the tiny study
+
     assert cli.main(["plan", study]) == 0
     out = capsys.readouterr().out
     assert " to run " not in out  # everything is done or failed now

@@ -53,7 +53,7 @@ def _edit_json(path: Path, edit) -> None:
     path.write_text(json.dumps(d, indent=1))
 
 
-@pytest.mark.parametrize("name", ["result.h5", "sparams.s2p", "metrics.json", "scene.json", "excite_1/status.json"])
+@pytest.mark.parametrize("name", ["result.h5", "sparams.s1p", "metrics.json", "scene.json", "excite_1/status.json"])
 def test_deleted_case_file(copy, name):
     verify, root, case = copy
     (case / name).unlink()
@@ -82,7 +82,7 @@ def test_edited_metrics_value_is_caught_even_after_collect(copy):
 
     _edit_json(case / "metrics.json", edit)
     rc, out = verify()
-    assert rc == 3 and "metrics.json S11" in out and "sparams.s2p" in out, out
+    assert rc == 3 and "metrics.json S11" in out and "sparams.s1p" in out, out
     assert "summary.S11_dB differs" in out  # the stored table no longer matches the case files
     from bodysweep.workflow.collect import collect_study
     from bodysweep.workflow.layout import StudyLayout
@@ -90,21 +90,23 @@ def test_edited_metrics_value_is_caught_even_after_collect(copy):
     collect_study(StudyLayout(root))
     rc, out = verify()
     assert rc == 3 and "metrics.json S11" in out and "summary" not in out, out
-    net = skrf.Network(str(case / "sparams.s2p"))
+    net = skrf.Network(str(case / "sparams.s1p"))  # only port 1 excited: one-port file
     m = json.loads((case / "metrics.json").read_text())
     k = int(np.argmin(abs(net.f - m["frequency_Hz"])))
     assert abs(net.s[k, 0, 0].real * 0.9 - m["S11"][0]) < 1e-12  # the reference really holds the old value
 
 
-def test_edited_peak_sar(copy):
+@pytest.mark.parametrize("key, message", [("grid_peak_W_per_kg_per_W", "result.h5 sar/avg_1g"),
+                                          ("peak_W_per_kg_per_W", "is not the larger of its grid")])
+def test_edited_peak_sar(copy, key, message):
     verify, root, case = copy
 
     def edit(d):
-        d["sar"][0]["peak_W_per_kg_per_W"] *= 1.01
+        d["sar"][0][key] *= 1.01
 
     _edit_json(case / "metrics.json", edit)
     rc, out = verify()
-    assert rc == 3 and "peak SAR 1 g" in out and "result.h5 sar/avg_1g" in out, out
+    assert rc == 3 and "peak SAR 1 g" in out and message in out, out
 
 
 def test_result_h5_of_another_case(copy):

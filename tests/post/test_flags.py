@@ -19,14 +19,16 @@ def test_cut_faces_by_hand():
 
 
 def test_truncation_flag_only_for_a_cube_touching_a_cut_face():
-    # a 10 mm cube centred 5.5 mm from the limb's end (y = 22 mm) stays clear (5 mm half side); at 4.5 mm it touches
-    clear = {"mass_kg": 0.001, "location_m": [0.0, 0.0165, -0.005], "cube_side_m": 0.010, "face_cube": False}
-    touch = dict(clear, location_m=[0.0, 0.0175, -0.005])
+    # hand calculation: a 10 mm cube centred 5.5 mm from the limb's end (y = 22 mm) stays clear (5 mm half side);
+    # centred 4.5 mm from it, it reaches past the end; centred 5.0 mm from it, its face lies on the end
+    clear = {"mass_kg": 0.001, "cube_centre_m": [0.0, 0.0165, -0.005], "cube_side_m": 0.010}
+    touch = dict(clear, cube_centre_m=[0.0, 0.0175, -0.005])
+    flush = dict(clear, cube_centre_m=[0.0, -0.017, -0.005])
     assert flags.truncation_warnings([clear], LIMB, None) == []
     w = flags.truncation_warnings([touch], LIMB, None)
     assert len(w) == 1 and w[0]["code"] == "sar_cube_truncated" and "y = 22 mm" in w[0]["message"]
-    # a face cube may reach a whole side beyond its voxel: 5.5 mm from the end is then touching
-    assert flags.truncation_warnings([dict(clear, face_cube=True)], LIMB, None)
+    assert "y = -22 mm" in flags.truncation_warnings([flush], LIMB, None)[0]["message"]
+    assert flags.truncation_warnings([dict(clear, cube_side_m=None)], LIMB, None) == []
     # the SAR grid's edge counts as a cut face
     w = flags.truncation_warnings([clear], {"type": "none"}, [(-0.1, 0.1), (-0.1, 0.1), (-0.008, 0.0)])
     assert w and "edge of the SAR grid along z" in w[0]["message"]
@@ -40,7 +42,7 @@ def test_normalisation_flag_below_a_few_percent_accepted(s11_dB, flagged):
     assert bool(w) is flagged
     if flagged:
         assert w[0]["accepted_fraction"] == pytest.approx(1 - s11 ** 2)
-        assert "matched_link_efficiency_dB" in w[0]["message"]
+        assert "implant_power_both_matched_dBm" in w[0]["message"]
 
 
 def test_energy_balance_and_its_band():
@@ -54,10 +56,11 @@ def test_energy_balance_and_its_band():
     assert flags.energy_balance(None, complex(0.6, 0), None) is None
 
 
-def test_case_warnings_collects_every_kind_and_text_has_one_clause_each():
+def test_case_warnings_collects_every_kind_as_one_line_each():
     m = {"S11": [0.999, 0.0], "S21": [0.001, 0.0], "absorbed_fraction_all": 1.5, "decay_reached": False,
-         "sar": [{"mass_kg": 0.01, "location_m": [0.019, 0.0, -0.003], "cube_side_m": 0.021, "face_cube": False}]}
+         "sar": [{"mass_kg": 0.01, "cube_centre_m": [0.019, 0.0, -0.003], "cube_side_m": 0.021}]}
     w = flags.case_warnings(m, {"phantom": SLAB})
     assert [x["code"] for x in w] == ["sar_cube_truncated", "accepted_power_low", "energy_balance", "end_criterion"]
-    assert len(flags.warnings_text(w).split("; ")) == 4
+    lines = flags.warning_lines(w)  # metrics.json["warnings"]: plain strings with the code first
+    assert [t.split(":")[0] for t in lines] == [x["code"] for x in w] and all(";" not in t and "|" not in t for t in lines)
     assert flags.case_warnings({"S11": [0.1, 0.0], "absorbed_fraction_all": 0.5, "decay_reached": True}, {}) == []

@@ -7,13 +7,8 @@ import numpy as np
 import pytest
 
 from bodysweep.workflow.post.sar import absorbed_power, cell_volumes, local_sar, tissue_mass
-from bodysweep.workflow.post.sar_average import (
-    ENCLOSED,
-    FACE,
-    VALID,
-    average_sar,
-    exact_cube_average_bruteforce,
-)
+from bodysweep.workflow.post.sar_average import ENCLOSED, FACE, VALID, average_sar
+from bodysweep.workflow.reference.sar_bruteforce import exact_cube_average_bruteforce
 
 
 def uniform_edges(n, d, start=0.0):

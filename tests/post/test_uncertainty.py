@@ -29,7 +29,8 @@ def test_budget_rows_root_sum_square_and_k2():
 
 def _metrics(peak, s11, s21, p_in, p_del, balance=0.9):
     return {"sar": [{"mass_kg": 0.001, "peak_W_per_kg_per_W": peak}], "S11": [s11, 0.0], "S21": [s21, 0.0],
-            "limits": [{"mass_kg": 0.001, "max_input_power_W": p_in, "delivered_power_W": p_del}],
+            "limits": [{"mass_kg": 0.001, "sar_limited_accepted_W": p_in,
+                        "implant_power_W": {"unmatched": p_del, "tx_matched": None, "both_matched": None}}],
             "energy_balance": balance}
 
 
@@ -39,7 +40,9 @@ def test_deviations_relative_for_sar_and_power_db_for_s():
     assert d["peak_SAR_1g"] == pytest.approx(0.2)  # (12 - 10) / 10
     assert d["S11"] == pytest.approx(20 * math.log10(0.5))  # 0.25 vs 0.5: -6.02 dB
     assert d["S21"] == pytest.approx(20 * math.log10(2))
-    assert d["delivered"] == pytest.approx(1.0)
+    assert d["implant_power_unmatched"] == pytest.approx(1.0)  # (2e-3 - 1e-3) / 1e-3
+    assert d["sar_limited_accepted"] == pytest.approx(0.1333 / 0.16 - 1)
+    assert "implant_power_tx_matched" not in d  # a variant without a value is not budgeted
 
 
 def test_power_balance_counts_only_the_excess_over_one():

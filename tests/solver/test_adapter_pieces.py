@@ -131,3 +131,16 @@ def test_build_refuses_a_bad_mesh_and_a_flat_dielectric():
         build.build_csx(model, _Plan(np.linspace(-0.05, 0.05, 11), None), None)
     with pytest.raises(ValueError, match="lines_x"):
         build.build_csx(model, _Plan(np.array([0.0, 0.01, 0.005]), None), None)
+
+
+def test_excitation_pulse_keeps_dc_out_of_the_spectrum():
+    """The Gaussian pulse's spectrum falls as -20 (df / fc)^2 dB from its centre (analytic: fc is the -20 dB
+    half-bandwidth of a Gaussian); DC lies f0 away and must stay >= 50 dB down for every allowed band_fraction
+    (0.01 ... 1.5, workflow/schema/solver.schema.json), else static fields survive the run."""
+    from bodysweep.workflow.solver import run
+
+    for bf in (0.01, 0.3, 0.6, 0.9, 1.0, 1.5):
+        f0, fc = run.excitation_pulse(403e6, bf)
+        assert f0 == 403e6
+        assert -20.0 * (f0 / fc) ** 2 <= -50.0, bf
+        assert fc >= 0.5 * f0  # at least half the case frequency: a short pulse

@@ -139,6 +139,46 @@ def test_merge_keeps_the_more_important_of_near_coincident_lines():
     assert [w for _, _, w in out] == ["conductor edge", "port end", "a"]
 
 
+def test_port_lines_of_two_ports_closer_than_the_threshold_both_stay():
+    # two feed gaps centred on x = 0: 2 mm and 1.5 mm (ends 0.25 mm apart), threshold 0.3125 mm; a gap end
+    # must sit on a line (ports.py), so neither may move; a dielectric face between them still goes
+    cands = [(-1e-3, 6, "port 1 gap end"), (-0.75e-3, 6, "port 2 gap end"), (-0.9e-3, 2, "skin face"),
+             (0.75e-3, 6, "port 2 gap end"), (1e-3, 6, "port 1 gap end")]
+    notes: list[str] = []
+    out = merge_fixed_lines(cands, 0.3125e-3, keep_apart=0.15e-3, notes=notes)
+    assert [p for p, _, _ in out] == [-1e-3, -0.75e-3, 0.75e-3, 1e-3]  # exact: gaps 2 mm and 1.5 mm kept
+    assert len(notes) == 2 and all("kept 0.2500 mm apart" in n for n in notes), notes
+    # closer than the smallest cell the mesh check accepts: refused, in mm and with the study's keys
+    with pytest.raises(MeshRefused) as e:
+        merge_fixed_lines([(-1e-3, 6, "port 1 gap end"), (-0.99e-3, 6, "port 2 gap end")], 0.3125e-3,
+                          keep_apart=0.15e-3)
+    msg = str(e.value)
+    assert "-1.0000 mm (port 1 gap end)" in msg and "-0.9900 mm (port 2 gap end)" in msg
+    assert "0.0100 mm apart" in msg and "feed_gap_mm" in msg
+
+
+def test_two_feed_gaps_at_nearby_positions_mesh_with_every_gap_end_on_a_line():
+    # external dipole with a 2 mm gap above, implant dipole with a 1.5 mm gap below, both along x at x = 0,
+    # a 2.5 mm skin layer (2.5 mm / 2 cells per layer -> finest 1.25 mm, threshold 0.3125 mm > 0.25 mm)
+    prims = (Box("skin", "skin", (-0.02, -0.02, -0.0025), (0.02, 0.02, 0.0), priority=12),
+             Box("muscle", "muscle", (-0.02, -0.02, -0.02), (0.02, 0.02, -0.0025), priority=10),
+             Wire("ext_a", "copper", ((-0.015, 0, 0.006), (-0.001, 0, 0.006))),
+             Wire("ext_b", "copper", ((0.001, 0, 0.006), (0.015, 0, 0.006))),
+             Wire("imp_a", "copper", ((-0.005, 0, -0.006), (-0.00075, 0, -0.006))),
+             Wire("imp_b", "copper", ((0.00075, 0, -0.006), (0.005, 0, -0.006))))
+    ports = (Port("p1", 1, (-0.001, 0, 0.006), (0.001, 0, 0.006), "x"),
+             Port("p2", 2, (-0.00075, 0, -0.006), (0.00075, 0, -0.006), "x"))
+    model = SceneModel(915e6, (MUSCLE, SKIN, PEC), prims, ports, body_bounds=((-0.02, -0.02, -0.02), (0.02, 0.02, 0)))
+    s = SolverSettings(cells_per_wavelength=6, air_margin_wavelengths=0.1, port_cells=1, max_growth_ratio=2.0)
+    plan = auto_mesh(model, s)
+    assert plan.merge_threshold_m > 0.25e-3
+    x = plan.lines_x
+    for v in (-1e-3, -0.75e-3, 0.75e-3, 1e-3):  # analytic: each gap end is a line, exactly
+        assert np.any(np.abs(x - v) < 1e-15), v
+    assert any("kept 0.2500 mm apart" in n for n in plan.notes)
+    check_mesh(plan, model, s)  # the solver step accepts it (sliver and grading checks)
+
+
 def test_near_coincident_faces_in_a_scene_are_merged_by_the_derived_threshold():
     base = muscle_block()
     # two dielectric faces 1 um apart at z = -20 mm (analytic: far below any requested cell size)

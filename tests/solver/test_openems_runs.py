@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 from bodysweep.geometry.model import SceneModel
+from bodysweep.workflow.solver import ADAPTER_VERSION
 from bodysweep.workflow.solver.case import finish_case
 from bodysweep.workflow.solver.run import solve_excitation
 
@@ -75,7 +76,7 @@ def test_finish_writes_touchstone_result_and_metrics(two_port_case):
         avg10 = h5["sar/avg_10g"][()]
         local = h5["sar/local"][()]
         rho = h5["sar/density_kg_m3"][()]
-        assert json.loads(h5.attrs["versions"])["adapter"] == "1"
+        assert json.loads(h5.attrs["versions"])["adapter"] == ADAPTER_VERSION
         assert "materials" in json.loads(h5.attrs["scene"])
     assert np.allclose(ntw.f, f_band) and np.allclose(ntw.s, S_band, atol=1e-9)
     assert f_band[0] == pytest.approx(F0 * 0.85) and f_band[-1] == pytest.approx(F0 * 1.15)
@@ -83,17 +84,25 @@ def test_finish_writes_touchstone_result_and_metrics(two_port_case):
     # (a mass average of non-negative values lies between their min and max: analytic)
     assert np.nanmax(avg10) <= np.max(local[rho > 0]) * (1 + 1e-6)
     peaks = {r["mass_kg"]: r["peak_W_per_kg_per_W"] for r in m["sar"]}
-    assert peaks[0.01] == pytest.approx(np.nanmax(avg10), rel=1e-5)
+    grid10 = m["sar"][1]["grid_peak_W_per_kg_per_W"]
+    assert grid10 == pytest.approx(np.nanmax(avg10), rel=1e-5)  # the voxel-grid procedure's volume
+    assert peaks[0.01] == max(grid10, m["sar"][1]["flush_peak_W_per_kg_per_W"] or 0.0)  # the larger is reported
     assert peaks[0.001] >= peaks[0.01] > 0
-    loc = m["sar"][1]["location_m"]
+    assert peaks[0.01] <= np.max(local[rho > 0]) * (1 + 1e-6)  # a mass average of non-negative values (analytic)
+    loc = m["sar"][1]["voxel_centre_m"]
     assert -0.03 <= loc[2] <= 0.0  # inside the phantom
-    # link budget: the allowed input is limit / peak; delivered = input |S21|^2 / (1 - |S11|^2) (Pozar sec. 11.1)
+    cube, side = m["sar"][1]["cube_centre_m"], m["sar"][1]["cube_side_m"]
+    assert all(abs(c - v) <= side / 2 + 1e-9 for c, v in zip(cube, loc))  # the peak voxel touches its cube
+    # link budget: the SAR-limited accepted power is limit / peak; port-1-matched implant power
+    # = accepted |S21|^2 / (1 - |S11|^2) (operating power gain with a Z0 load, Pozar sec. 12.1)
     lim = m["limits"][0]
-    assert lim["max_input_power_W"] == pytest.approx(2.0 / peaks[0.01])
+    assert lim["sar_limited_accepted_W"] == pytest.approx(2.0 / peaks[0.01])
     s11, s21 = complex(*m["S11"]), complex(*m["S21"])
-    assert lim["delivered_power_W"] == pytest.approx(lim["max_input_power_W"] * abs(s21) ** 2 / (1 - abs(s11) ** 2))
-    # matched link efficiency (maximum available gain) >= transducer gain with 50 ohm terminations
-    assert m["matched_link_efficiency"] >= abs(s21) ** 2 * (1 - 1e-9)
+    p = lim["implant_power_W"]
+    assert p["tx_matched"] == pytest.approx(lim["sar_limited_accepted_W"] * abs(s21) ** 2 / (1 - abs(s11) ** 2))
+    # maximum available gain >= operating gain with a Z0 load >= transducer gain with Z0 at both ends
+    assert p["unmatched"] <= p["tx_matched"] <= p["both_matched"] * (1 + 1e-9)
+    assert m["max_available_gain"] >= abs(s21) ** 2 * (1 - 1e-9)
     assert m["decay_reached"] is True and m["cells"] > 0 and m["timesteps"] > 0
 
 
@@ -212,6 +221,84 @@ def test_slurm_job_id_is_recorded(tmp_path, monkeypatch):
     assert st["status"] == "ok", st["reason"]
     # one-port scene: an s1p file and no coupling figures
     m = finish_case(case)
-    assert m["status"] == "ok" and m["S21"] is None and m["matched_link_efficiency"] is None
+    assert m["status"] == "ok" and m["S21"] is None and m["max_available_gain"] is None
+    assert m["ports"]["port2_reason"] == "no implant port (one-port scene)"
     assert (case / "sparams.s1p").exists()
     assert m["sar"] == [] or all(r["peak_W_per_kg_per_W"] is None for r in m["sar"])
+
+
+def _read_touchstone_strictly(path):
+    """scikit-rf reading a Touchstone file with every warning an error; returns the Network."""
+    import warnings
+
+    import skrf
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        ntw = skrf.Network(str(path))
+    assert np.all(np.isfinite(ntw.s)), f"{path.name} holds NaN or inf"
+    assert "nan" not in path.read_text().lower()
+    return ntw
+
+
+def test_port_figures_match_scikit_rf_on_the_case_touchstone(two_port_case):
+    case, _ = two_port_case
+    m = finish_case(case)
+    ntw = _read_touchstone_strictly(case / "sparams.s2p")  # the case's own Touchstone file
+    k = int(np.argmin(np.abs(ntw.f - m["frequency_Hz"])))
+    assert ntw.f[k] == pytest.approx(m["frequency_Hz"], rel=1e-9)
+    # input impedance of each port with the other on Z0: scikit-rf one-port z of S11 / S22
+    for p, sub in ((1, ntw.s11), (2, ntw.s22)):
+        z = complex(*m["ports"][f"Zin{p}_ohm"])
+        assert z == pytest.approx(complex(sub.z[k, 0, 0]), rel=1e-6)
+        # mismatch loss -10 log10(1 - |S|^2) (Pozar sec. 2.3) from scikit-rf's |S|
+        assert m["ports"][f"mismatch_loss_port{p}_dB"] == pytest.approx(-10 * np.log10(1 - sub.s_mag[k, 0, 0] ** 2),
+                                                                         rel=1e-6)
+    # Rollett K and maximum available gain: scikit-rf Network.stability and Network.max_gain
+    assert m["ports"]["rollett_K"] == pytest.approx(ntw.stability[k], rel=1e-6)
+    assert m["max_available_gain"] == pytest.approx(ntw.max_gain[k], rel=1e-6)
+    lim = m["limits"][0]
+    p_lim = lim["sar_limited_accepted_W"]
+    p = lim["implant_power_W"]
+    assert p["both_matched"] == pytest.approx(p_lim * ntw.max_gain[k], rel=1e-6)
+    assert p["unmatched"] == pytest.approx(p_lim * ntw.s_mag[k, 1, 0] ** 2, rel=1e-6)  # transducer gain, Z0 ends
+    assert p["tx_matched"] == pytest.approx(p_lim * ntw.s_mag[k, 1, 0] ** 2 / (1 - ntw.s_mag[k, 0, 0] ** 2), rel=1e-6)
+    assert m["ports"]["port2_reason"] is None
+    # same file mode as the other outputs (the process umask, not a temporary file's 0600)
+    assert (case / "sparams.s2p").stat().st_mode & 0o777 == (case / "metrics.json").stat().st_mode & 0o777
+
+
+def test_only_port1_excited_gives_a_one_port_touchstone(two_port_case, tmp_path):
+    import shutil
+
+    src, _ = two_port_case
+    case = tmp_path / "port1_only"
+    shutil.copytree(src, case, ignore=shutil.ignore_patterns("excite_2", "sparams.*", "metrics.json", "result.h5"))
+    cj = json.loads((case / "case.json").read_text())
+    cj["solver"]["excite_ports"] = [1]
+    (case / "case.json").write_text(json.dumps(cj))
+    m = finish_case(case)
+    assert m["status"] in ("ok", "warning")
+    assert not (case / "sparams.s2p").exists()
+    ntw = _read_touchstone_strictly(case / "sparams.s1p")
+    assert ntw.nports == 1 and "only port 1 was excited" in ntw.comments
+    assert complex(*m["S11"]) == pytest.approx(complex(ntw.s[int(np.argmin(np.abs(ntw.f - F0))), 0, 0]), rel=1e-6)
+    # S21 is computed, S22 is not: port-1 figures present, both-ends matching missing with its reason
+    assert m["S21"] is not None and m["S22"] is None and m["ports"]["rollett_K"] is None
+    assert "excite: [1, 2]" in m["ports"]["port2_reason"]
+    lim = m["limits"][0]
+    assert lim["implant_power_W"]["both_matched"] is None and lim["implant_power_W"]["tx_matched"] > 0
+    assert "port 2" in lim["implant_power_reason"]["both_matched"]
+
+
+def test_strongly_coupled_case_is_flagged_not_silently_ok(two_port_case, monkeypatch):
+    from bodysweep.workflow.post import portfigures
+
+    case, _ = two_port_case
+    m = finish_case(case)
+    assert m["status"] == ("warning" if m["max_available_gain"] > portfigures.STRONG_COUPLING else "ok")
+    monkeypatch.setattr(portfigures, "STRONG_COUPLING", 0.0)  # every coupled link is now "strong"
+    m = finish_case(case)
+    assert m["status"] == "warning" and any("strong coupling" in w for w in m["warnings"])
+    monkeypatch.undo()
+    finish_case(case)  # leave the fixture's files as the other tests expect them

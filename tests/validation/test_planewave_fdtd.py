@@ -33,8 +33,8 @@ and the phase tolerance 0.5 deg five times the observed 0.09 deg. A regression t
 import numpy as np
 import pytest
 
-from bodysweep.workflow.solver.planewave import (PlaneWaveSetup, plane_wave_mesh, reference_solution,
-                                                 sar_comparison, solve_plane_wave, tissue_layer)
+from bodysweep.workflow.reference.planewave_fdtd import (PlaneWaveSetup, plane_wave_mesh, reference_solution,
+                                                        sar_comparison, solve_plane_wave, tissue_layer)
 
 pytestmark = pytest.mark.validation
 solver = pytest.mark.solver

@@ -6,8 +6,10 @@ sparams
     DFT of probe signals, power waves, S-matrix assembly, accepted power, Touchstone writer.
 twoport
     Rollett stability factor, maximum available / stable gain, transducer gain, conjugate match.
-sar, sar_average
-    Local SAR from the raw field dump and mass-averaged SAR over cubes (IEC/IEEE 62704-1 style).
+sar, sar_cubes, sar_average, sar_flush
+    Local SAR from the raw field dump; exact box contents and cube sides; mass-averaged SAR over cubes
+    placed on the voxel grid (IEC/IEEE 62704-1 procedure); the best cube flush with a tissue surface at
+    any position along it.
 limits, linkbudget
     Exposure limit table and the SAR-limited link budget.
 
@@ -15,5 +17,8 @@ No module here imports openEMS or reads solver files; the solver adapter feeds a
 """
 
 # Part of every case identity: bump when a change here alters any result.
-POST_VERSION = "3"  # 2: a cube face within rounding of a mesh line lies on it (whole-cell cubes flush with the surface)
-# 3: metrics.json carries the peak cube side, the energy balance and per-case warnings
+POST_VERSION = "4"  # 4: metrics.json carries the energy balance and the suspect-case warnings (truncated peak cube,
+#                        low accepted power, energy balance, end criterion)
+# 3: cube faces snap to mesh lines within 1 % of the cell width; reported SAR peak is the larger
+#                        of the voxel-grid peak and the best cube flush with a surface (continuous position)
+# 2: a cube face within rounding of a mesh line lies on it (whole-cell cubes flush with the surface)

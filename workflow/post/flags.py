@@ -1,12 +1,13 @@
 """Warnings for finished cases whose numbers may be wrong although the run itself succeeded.
 
-A case keeps ``status: ok``; each suspicion becomes one entry ``{"code": ..., "message": ...}`` of
-``metrics.json["warnings"]`` and one clause of the ``warnings`` column of the summary table.
+Each suspicion becomes one plain string ``"<code>: <message>"`` of ``metrics.json["warnings"]`` (beside
+the finish step's other warnings), so the case's status is ``warning`` and the summary's ``warnings``
+column lists it.
 
 Codes
 -----
 ``sar_cube_truncated``
-    The peak averaging cube of some mass touches a cut face of the phantom (a face that is not body
+    The averaging cube of the reported peak of some mass touches a cut face of the phantom (a face that is not body
     surface: the ends of a limb, the sides and bottom of a slab or liquid box) or the edge of the SAR
     grid. The tissue beyond that face is missing from the model, so the peak is a truncation artefact.
 ``accepted_power_low``
@@ -34,6 +35,9 @@ from typing import Iterable, Mapping, Sequence
 MIN_ACCEPTED_FRACTION = 0.05
 #: tolerated excess of (absorbed + delivered) over accepted power (numerical noise of the two sums)
 ENERGY_BALANCE_EXCESS = 0.05
+
+#: between the warnings of one case in the summary's ``warnings`` column
+WARNING_SEPARATOR = " | "
 
 _AXES = "xyz"
 
@@ -73,16 +77,6 @@ def cut_faces(phantom: Mapping) -> list[tuple[int, float, str]]:
     return []
 
 
-def cube_reach_m(side_m: float, face_cube: bool) -> float:
-    """How far from the peak voxel's centre its averaging cube may extend, per axis.
-
-    A centred cube (valid or enclosed voxel) reaches ``side / 2``; a face cube (the voxel lies on one
-    face of its cube, IEC/IEEE 62704-1 step for surface voxels) may reach a whole ``side`` on the far side,
-    so that side is used (conservative: the face cube's direction is not recorded).
-    """
-    return float(side_m) if face_cube else 0.5 * float(side_m)
-
-
 def truncation_warnings(sar_rows: Iterable[Mapping], phantom: Mapping,
                         grid_bounds_m: Sequence[Sequence[float]] | None, tol_m: float = 1e-6) -> list[dict]:
     """``sar_cube_truncated`` warnings for the peak cubes that touch a cut face or the grid's edge.
@@ -90,34 +84,35 @@ def truncation_warnings(sar_rows: Iterable[Mapping], phantom: Mapping,
     Parameters
     ----------
     sar_rows : iterable of mapping
-        ``mass_kg``, ``location_m`` (peak voxel centre), ``cube_side_m``, ``face_cube`` (bool), as in
-        ``metrics.json["sar"]``; rows without a side are skipped.
+        ``mass_kg``, ``cube_centre_m`` (centre of the averaging cube of the reported peak) and
+        ``cube_side_m``, as in ``metrics.json["sar"]``; rows without them are skipped.
     phantom : mapping
         SI phantom spec dict.
     grid_bounds_m : ((x0, x1), (y0, y1), (z0, z1)) or None
         Outer edges of the SAR grid.
     tol_m : float
-        A cube within this distance of a face touches it.
+        A cube face within this distance of a cut face touches it.
     """
     faces = cut_faces(phantom)
     out = []
     for row in sar_rows:
         side = row.get("cube_side_m")
-        loc = row.get("location_m")
-        if side is None or not loc or not all(isinstance(v, (int, float)) and math.isfinite(v) for v in [side, *loc]):
+        centre = row.get("cube_centre_m")
+        if side is None or not centre or not all(isinstance(v, (int, float)) and math.isfinite(v)
+                                                 for v in [side, *centre]):
             continue
-        reach = cube_reach_m(side, bool(row.get("face_cube")))
-        hits = [name for a, c, name in faces if abs(float(loc[a]) - c) <= reach + tol_m]
+        reach = 0.5 * float(side)
+        hits = [name for a, c, name in faces if abs(float(centre[a]) - c) <= reach + tol_m]
         if grid_bounds_m is not None:
             for a in range(3):
                 lo, hi = (float(v) for v in grid_bounds_m[a])
-                if float(loc[a]) - reach <= lo + tol_m or float(loc[a]) + reach >= hi - tol_m:
+                if float(centre[a]) - reach <= lo + tol_m or float(centre[a]) + reach >= hi - tol_m:
                     hits.append(f"the edge of the SAR grid along {_AXES[a]}")
         if hits:
             m_g = float(row["mass_kg"]) * 1e3
-            where = ", ".join(f"{v * 1e3:.1f}" for v in loc)
+            where = ", ".join(f"{v * 1e3:.1f}" for v in centre)
             out.append({"code": "sar_cube_truncated", "mass_g": m_g,
-                        "message": f"peak {m_g:g} g cube ({side * 1e3:.1f} mm side, voxel at [{where}] mm) touches "
+                        "message": f"peak {m_g:g} g cube ({side * 1e3:.1f} mm side, centre [{where}] mm) touches "
                                    f"{' and '.join(dict.fromkeys(hits))}: the peak is a truncation artefact, "
                                    "enlarge the phantom or move the antenna away from that face"})
     return out
@@ -139,8 +134,8 @@ def normalisation_warning(s11: complex | None) -> list[dict]:
     return [{"code": "accepted_power_low", "accepted_fraction": frac,
              "message": f"only {frac * 100:.2g} % of the incident power is accepted at port 1 (S11 = {s11_dB:.3g} dB, "
                         f"below {MIN_ACCEPTED_FRACTION * 100:g} %): the per-watt SAR and allowed input power are "
-                        "ill-conditioned, match the external antenna or compare with matched_link_efficiency_dB "
-                        "(excite: [1, 2])"}]
+                        "ill-conditioned, match the external antenna or use the matched link figures "
+                        "(implant_power_tx_matched_dBm, implant_power_both_matched_dBm with excite: [1, 2])"}]
 
 
 def energy_balance(absorbed_per_W: float | None, s11: complex | None, s21: complex | None) -> float | None:
@@ -195,6 +190,6 @@ def case_warnings(metrics: Mapping, scene: Mapping, grid_bounds_m=None) -> list[
     return out
 
 
-def warnings_text(warnings: Iterable[Mapping]) -> str:
-    """The summary table's ``warnings`` cell: the messages joined by ``"; "`` (empty when none)."""
-    return "; ".join(str(w.get("message", "")) for w in warnings or [] if w)
+def warning_lines(warnings: Iterable[Mapping]) -> list[str]:
+    """The warnings as ``metrics.json["warnings"]`` holds them: one plain string ``"<code>: <message>"`` each."""
+    return [f"{w.get('code', 'warning')}: {w.get('message', '')}" for w in warnings or [] if w]

@@ -13,8 +13,6 @@ Port convention
 """
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -259,7 +257,8 @@ def reciprocity(S) -> np.ndarray:
 def write_touchstone(path, f_Hz, S, z0_ohm=50.0, comments=(), *, form: str = "ri") -> Path:
     """Write S-parameters as a Touchstone (version 1) file through scikit-rf.
 
-    The file is written to a temporary name in the target folder and renamed into place.
+    The file is written to a temporary name in the target folder and renamed into place, with the
+    same file mode as every other output (:func:`bodysweep.workflow.atomic.atomic_path`).
 
     Parameters
     ----------
@@ -268,7 +267,7 @@ def write_touchstone(path, f_Hz, S, z0_ohm=50.0, comments=(), *, form: str = "ri
     f_Hz : array_like, shape (nf,)
         Frequencies in hertz.
     S : array_like, complex, shape (nf, n, n)
-        Unknown entries may be NaN (written as ``nan``).
+        Every entry finite (a NaN is refused: standard readers reject it).
     z0_ohm : float, optional
         Real reference impedance of all ports.
     comments : str or sequence of str, optional
@@ -300,14 +299,12 @@ def write_touchstone(path, f_Hz, S, z0_ohm=50.0, comments=(), *, form: str = "ri
         lines.extend(str(c).splitlines() or [""])
     ntw.comments = "\n".join(lines)
     text = ntw.write_touchstone(return_string=True, form=form, skrf_comment=True)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", dir=target.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="ISO-8859-1", newline="\n") as fh:
+    if not np.all(np.isfinite(S)):
+        raise ValueError("write_touchstone: S holds NaN or infinite entries; write only what was computed "
+                         "(many Touchstone readers refuse nan)")
+    from bodysweep.workflow.atomic import atomic_path
+
+    with atomic_path(target) as tmp:
+        with open(tmp, "w", encoding="ISO-8859-1", newline="\n") as fh:
             fh.write(text)
-        os.replace(tmp, target)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
     return target

@@ -9,12 +9,13 @@ already in the quantity's unit) and the expanded uncertainty is ``U = k u_c`` wi
 
 Quantities and the unit of their deviations:
 
-- peak averaged SAR per mass, allowed (SAR-limited) input power, delivered power: relative (fraction);
+- peak averaged SAR per mass, SAR-limited accepted power, implant power per matching variant: relative
+  (fraction);
 - S11, S21: dB (the difference of ``20 log10 |S|``).
 
 The power-balance component comes from the case's own metrics: radiated power is not computed, so only
 the part of ``(absorbed + delivered) / accepted`` above 1 is counted (no radiation explains it); it
-applies to the per-watt quantities (SAR, allowed and delivered power), not to S-parameters.
+applies to the per-watt quantities (SAR, SAR-limited and implant powers), not to S-parameters.
 """
 from __future__ import annotations
 
@@ -60,11 +61,16 @@ def _mass_tag(mass_kg: float) -> str:
     return f"{round(float(mass_kg) * 1e3, 6):g}g"
 
 
+#: implant power variants of ``metrics.json["limits"][i]["implant_power_W"]`` (as in the summary)
+IMPLANT_VARIANTS = ("unmatched", "tx_matched", "both_matched")
+
+
 def quantities(metrics: Mapping) -> dict[str, tuple[float, str]]:
     """The budgeted quantities of one case: ``name -> (value, "relative" | "dB")``.
 
-    Names: ``peak_SAR_<m>g`` per averaging mass, ``S11``, ``S21``, ``allowed_input`` and ``delivered``
-    (of the most restrictive limit, as in the summary table).
+    Names: ``peak_SAR_<m>g`` per averaging mass, ``S11``, ``S21``, ``sar_limited_accepted`` and
+    ``implant_power_<variant>`` per matching variant with a value (of the most restrictive limit, as in
+    the summary table).
     """
     out: dict[str, tuple[float, str]] = {}
     for s in metrics.get("sar") or []:
@@ -72,13 +78,16 @@ def quantities(metrics: Mapping) -> dict[str, tuple[float, str]]:
     out["S11"] = (_db(metrics.get("S11")), "dB")
     if metrics.get("S21") is not None:
         out["S21"] = (_db(metrics.get("S21")), "dB")
-    lims = [(_num(l.get("max_input_power_W")), _num(l.get("delivered_power_W"))) for l in metrics.get("limits") or []]
+    lims = [(_num(l.get("sar_limited_accepted_W")), i) for i, l in enumerate(metrics.get("limits") or [])]
     lims = [x for x in lims if x[0] == x[0]]
     if lims:
-        p_in, p_del = min(lims)
-        out["allowed_input"] = (p_in, "relative")
-        if p_del == p_del:
-            out["delivered"] = (p_del, "relative")
+        p_acc, i = min(lims)
+        out["sar_limited_accepted"] = (p_acc, "relative")
+        powers = metrics["limits"][i].get("implant_power_W") or {}
+        for v in IMPLANT_VARIANTS:
+            p = _num(powers.get(v))
+            if p == p:
+                out[f"implant_power_{v}"] = (p, "relative")
     return out
 
 

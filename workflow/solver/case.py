@@ -2,15 +2,17 @@
 
 :func:`finish_case` reads what the excitations left in ``excite_<p>/`` (see :mod:`.run`) and writes
 
-``sparams.s2p`` (``.s1p`` for a one-port scene)
-    the S-matrix over the band (Touchstone, through :func:`bodysweep.workflow.post.sparams.write_touchstone`);
+``sparams.s2p`` (``.s1p`` for a one-port scene or when only port 1 was excited)
+    the S-matrix over the band, only the entries that were computed (Touchstone, through :func:`bodysweep.workflow.post.sparams.write_touchstone`);
 ``result.h5``
     local SAR and the mass-averaged SAR volumes per watt accepted at port 1 (compressed), the SAR
     grid (cell edges), the S-matrix over the band; attributes: case id, scene, settings, versions;
 ``metrics.json``
     the small summary the collectors read (status, S-parameters at the case frequency as [re, im],
-    passivity, reciprocity, peak SAR per mass with location, limits with allowed input power and
-    delivered power, matched link efficiency, runtime, cells, timesteps, decay, the solver's own
+    passivity, reciprocity, peak SAR per mass: the larger of the voxel-grid procedure's peak and the best
+    cube flush with a tissue surface, both with cube centre and peak voxel; limits with allowed input power and
+    implant power per matching variant, port impedances, mismatch losses, Rollett K, maximum available
+    gain, warnings, runtime, cells, timesteps, decay, the solver's own
     averaged SAR beside ours when it was run).
 
 All SAR figures are normalised to 1 W *accepted* at port 1 (``0.5 Re{V conj(I)}`` at the case
@@ -141,11 +143,11 @@ def sar_per_watt(raw: dict, p_accepted_W: float) -> dict:
 
 
 def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarray) -> list[dict]:
-    """Largest input power per exposure limit and the power then delivered to the implant.
+    """SAR-limited accepted power per exposure limit and the implant power per matching variant.
 
     The numbers come from :func:`bodysweep.workflow.post.linkbudget.max_input_power` and
-    :func:`~bodysweep.workflow.post.linkbudget.delivered_power` (the one implementation); a value
-    they refuse (no peak, one-port scene, ``|S11| >= 1``) is ``None`` here.
+    :func:`bodysweep.workflow.post.portfigures.implant_power_variants` (the one implementation); a value
+    they refuse (no peak, one-port scene, port 2 not excited) is ``None`` with its reason.
 
     Parameters
     ----------
@@ -159,11 +161,12 @@ def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarr
     Returns
     -------
     list of dict
-        Each limit plus ``max_input_power_W`` (accepted at port 1, = limit / peak) and
-        ``delivered_power_W``: power into the implant port's matched load (``Z0``) at that input,
-        ``P_in |S21|^2 / (1 - |S11|^2)`` (see :mod:`bodysweep.workflow.post.linkbudget`).
+        Each limit plus ``sar_limited_accepted_W`` (accepted at port 1, = limit / peak),
+        ``implant_power_W`` (``{variant: W or None}``, variants ``unmatched``, ``tx_matched``,
+        ``both_matched``) and ``implant_power_reason`` (``{variant: why missing}``).
     """
-    from bodysweep.workflow.post.linkbudget import delivered_power, max_input_power
+    from bodysweep.workflow.post.linkbudget import max_input_power
+    from bodysweep.workflow.post.portfigures import VARIANTS, implant_power_variants
 
     S0 = np.asarray(S0, dtype=complex)
     out = []
@@ -171,16 +174,21 @@ def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarr
         peak = peaks.get(round(float(lim["mass_kg"]), 9), np.nan)
         try:
             p_in = max_input_power(peak, lim["limit_W_per_kg"])
+            why = None
         except ValueError:
-            p_in = None
-        p_del = None
-        if p_in is not None and S0.shape[0] >= 2:
-            try:
-                p_del = _finite_or_none(delivered_power(p_in, S0[:2, :2]))
-            except ValueError:
-                p_del = None
+            p_in, why = None, "no finite peak SAR for this averaging mass"
+        powers = {v: None for v in VARIANTS}
+        reasons = {v: why for v in VARIANTS} if why else {}
+        if p_in is not None:
+            if S0.shape[0] >= 2:
+                r = implant_power_variants(p_in, S0[:2, :2])
+                powers = {v: _finite_or_none(r[v]) if r[v] is not None else None for v in VARIANTS}
+                reasons = r["reason"]
+            else:
+                reasons = {v: "no implant port (one-port scene)" for v in VARIANTS}
         out.append({"mass_kg": float(lim["mass_kg"]), "limit_W_per_kg": float(lim["limit_W_per_kg"]),
-                    "source": str(lim.get("source", "")), "max_input_power_W": p_in, "delivered_power_W": p_del})
+                    "source": str(lim.get("source", "")), "sar_limited_accepted_W": p_in,
+                    "implant_power_W": powers, "implant_power_reason": reasons})
     return out
 
 
@@ -197,8 +205,8 @@ def _versions() -> dict:
 def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:
     """The engine's own averaged SAR peaks (if it was run) beside ours, per W accepted at port 1.
 
-    ``ours`` maps mass (kg) to our peak (W/kg per W). Per mass: the engine's peak and its location,
-    ours and the relative difference ``(engine - ours) / ours``, or the reason it is missing.
+    ``ours`` maps mass (kg) to our peak of the same voxel-grid procedure (W/kg per W), not the flush-cube
+    peak. Per mass: the engine's peak and its location, ours and the relative difference ``(engine - ours) / ours``, or the reason it is missing.
     """
     st_path = case_dir / "excite_1" / "solver_sar_status.json"
     if not st_path.exists():
@@ -245,7 +253,8 @@ def finish_case(case_dir) -> dict:
     import h5py
 
     from bodysweep.workflow.atomic import atomic_path, write_json
-    from bodysweep.workflow.post.sar_average import FACE, average_sar
+    from bodysweep.workflow.post.sar_average import average_sar
+    from bodysweep.workflow.post.sar_flush import flush_cube_peak, reported_peak
 
     from .settings import settings_from_dict
 
@@ -279,9 +288,28 @@ def finish_case(case_dir) -> dict:
     pas = sparams.passivity(S0[None])[0]
     rec = sparams.reciprocity(S0[None])[0] if set(exc_ports) >= set(int(p) for p in exc[0]["ports"]) else np.nan
     pas_band = sparams.passivity(S_band)
-    sparams.write_touchstone(case_dir / "sparams.s2p", f_band, S_band, z0,
-                             comments=[f"bodysweep case {case.get('case_id')}", "current into each port, "
-                                       f"reference impedance {z0:g} ohm"])
+    all_ports = set(exc_ports) >= set(int(p) for p in exc[0]["ports"])
+    comments = [f"bodysweep case {case.get('case_id')}", f"current into each port, reference impedance {z0:g} ohm"]
+    if all_ports or n_ports == 1:
+        ts_S = S_band
+    else:  # only what was computed: the reflection at port 1 (S21 over the band stays in result.h5)
+        ts_S = S_band[:, :1, :1]
+        comments.append("only port 1 was excited: one-port file of S11; S21 over the band is in result.h5 "
+                        "(sparams/S), S12 and S22 were not computed")
+    keep = np.all(np.isfinite(ts_S.reshape(len(f_band), -1)), axis=1)
+    band_warnings = []
+    if not keep.all():  # an ill-conditioned excitation matrix leaves a band point undetermined
+        band_warnings.append(f"{int((~keep).sum())} of {len(f_band)} band points have no S-matrix "
+                             "(ill-conditioned excitations) and are left out of the Touchstone file")
+        comments.append(band_warnings[-1])
+    if not keep.any():
+        out = {**base, "status": "failed", "reason": "no band point has a finite S-matrix", "runtime_s": runtime}
+        write_json(case_dir / "metrics.json", out)
+        return out
+    written = sparams.write_touchstone(case_dir / "sparams.s2p", f_band[keep], ts_S[keep], z0, comments=comments)
+    for stale in case_dir.glob("sparams.s*p"):  # a file of another port count from an earlier run
+        if stale != written:
+            stale.unlink(missing_ok=True)
 
     def s(i, j):
         return _c2pair(S0[i, j]) if i < n_ports and j < n_ports else None
@@ -300,30 +328,39 @@ def finish_case(case_dir) -> dict:
         sp = sar_per_watt(raw, p_acc)
         edges = (raw["x_edges_m"], raw["y_edges_m"], raw["z_edges_m"])
         volumes["local"] = sp["local"]
+        grid_peaks = {}
         for m in sar_cfg.get("masses_kg", [0.001, 0.01]):
             m = float(m)
-            r = average_sar(sp["local"], raw["density_kg_m3"], *edges, m,
-                            max_air_fraction=float(sar_cfg.get("max_air_fraction", 0.1)))
-            peaks[round(m, 9)] = float(r.peak)
+            air = float(sar_cfg.get("max_air_fraction", 0.1))
+            r = average_sar(sp["local"], raw["density_kg_m3"], *edges, m, max_air_fraction=air)
+            flush = flush_cube_peak(sp["local"], raw["density_kg_m3"], *edges, m, max_air_fraction=air)
+            rep = reported_peak(r, flush)  # the larger of the voxel-grid peak and the best flush cube
+            peaks[round(m, 9)] = rep["peak_W_per_kg"] if rep["peak_W_per_kg"] is not None else float("nan")
+            grid_peaks[m] = float(r.peak)
             volumes[f"avg_{m * 1e3:g}g"] = r.avg
-            side = _finite_or_none(r.side_m[r.peak_index]) if r.peak_index else None
-            sar_rows.append({"mass_kg": m, "peak_W_per_kg_per_W": _finite_or_none(r.peak),
-                             "location_m": [float(v) for v in r.peak_location_m], "peak_status": int(r.peak_status),
-                             "cube_side_m": side, "face_cube": int(r.peak_status) == FACE})
+            sar_rows.append({"mass_kg": m, **{k.replace("_W_per_kg", "_W_per_kg_per_W"): v for k, v in rep.items()}})
         metrics["accepted_power_port1_W"] = p_acc
         metrics["absorbed_fraction_tissue"] = sp["absorbed_tissue_W_per_W"]
         metrics["absorbed_fraction_all"] = sp["absorbed_all_W_per_W"]
-        metrics["solver_sar"] = _solver_sar_comparison(case_dir, {m: peaks[round(m, 9)] for m in
-                                                                  (float(x) for x in sar_cfg.get("masses_kg", [0.001, 0.01]))},
-                                                       p_acc)
+        metrics["solver_sar"] = _solver_sar_comparison(case_dir, grid_peaks, p_acc)
     metrics["sar"] = sar_rows
     metrics["limits"] = link_budget_rows(sar_cfg.get("limits", []), peaks, S0)
-    mle = None
+    from bodysweep.workflow.post.portfigures import STRONG_COUPLING, port_figures
+
+    metrics["ports"] = port_figures(S0, z0, exc_ports)
+    mag = None
     if n_ports >= 2 and np.all(np.isfinite(S0[:2, :2])):
         from bodysweep.workflow.post.twoport import max_available_gain
 
-        mle = _finite_or_none(np.asarray(max_available_gain(S0[None, :2, :2])).ravel()[0])
-    metrics["matched_link_efficiency"] = mle
+        g, is_mag = max_available_gain(S0[None, :2, :2], return_flag=True)
+        mag = _finite_or_none(g[0]) if bool(is_mag[0]) else None
+    metrics["max_available_gain"] = mag
+    warnings = list(band_warnings)
+    # only the both-ends-matched figure changes the implant load from the Z0 the SAR was computed with
+    if mag is not None and mag > STRONG_COUPLING:
+        warnings.append(f"strong coupling: with both ends matched the implant takes {mag:.0%} of the accepted "
+                        "power, but SAR was computed with the implant port on the reference impedance, so the "
+                        "both-ends-matched implant power is less certain")
     metrics["runtime_s"] = runtime
     metrics["cells"] = statuses[exc_ports[0]].get("cells")
     metrics["timesteps"] = int(sum(int(s.get("timesteps") or 0) for s in statuses.values()))
@@ -333,7 +370,10 @@ def finish_case(case_dir) -> dict:
     metrics["energy_balance"] = flags.energy_balance(metrics.get("absorbed_fraction_all"), S0[0, 0],
                                                      S0[1, 0] if n_ports >= 2 else None)
     bounds = [(float(e[0]), float(e[-1])) for e in edges] if volumes else None
-    metrics["warnings"] = flags.case_warnings(metrics, case.get("scene") or {}, bounds)
+    warnings += flags.warning_lines(flags.case_warnings(metrics, case.get("scene") or {}, bounds))
+    metrics["warnings"] = warnings
+    if warnings:
+        metrics["status"] = "warning"
 
     versions = _versions()
     scene_file = case_dir / "scene.json"

@@ -87,6 +87,39 @@ def parallel_plate_boundaries(e_axis: int, h_axis: int, absorber: str = "pml", p
     return names
 
 
+def pml_sizes_first(names: list[str]) -> list[str] | None:
+    """The boundary list to give the engine *before* ``names`` when a PML face has a non-PML opposite.
+
+    openEMS 0.0.35 keeps a PML thickness for every face, 8 cells unless the face was set as a PML,
+    and uses the *lower* face's thickness in two places that concern the upper PML of the same axis
+    (``Operator_Ext_UPML::Create_UPML``: the end of the y and z layers' x range is
+    ``N - 1 - (size[x-min] + 1)``; ``CalcGradingKappa``: the upper layer's grading step is
+    ``width / size[lower]``). With a wall (PEC, a half-domain solve) on x-min and ``PML_10`` on x-max
+    the y and z layers then reach two lines into the x-max layer: those corner cells get both
+    layers' updates and the fields diverge (NaN energy within a few hundred timesteps, measured).
+    Setting every face as a PML of the same thickness first and then the wanted list leaves each
+    non-PML face with that thickness stored, so both uses see the right number.
+
+    Returns None when no face needs it (all faces PML of one thickness, or no PML).
+    """
+    sizes = {int(n[4:]) for n in names if str(n).startswith("PML_")}
+    if not sizes:
+        return None
+    if len(sizes) > 1:
+        raise ValueError(f"boundaries: PML faces must all have the same thickness, got {names}")
+    if all(str(n).startswith("PML_") for n in names):
+        return None
+    return [f"PML_{sizes.pop()}"] * 6
+
+
+def set_boundaries(fdtd, names: list[str]) -> None:
+    """Give the engine its six boundary names, with the PML thickness fix of :func:`pml_sizes_first`."""
+    first = pml_sizes_first(names)
+    if first is not None:
+        fdtd.SetBoundaryCond(first)
+    fdtd.SetBoundaryCond(list(names))
+
+
 def new_simulation(f0_Hz: float, fc_Hz: float, end_criterion: float, max_timesteps: int,
                    boundary: str = "pml", pml_cells: int = 8, boundaries: list[str] | None = None):
     """A fresh ``(fdtd, csx)`` pair: Gaussian pulse, stop criterion, absorbing boundary.
@@ -109,7 +142,7 @@ def new_simulation(f0_Hz: float, fc_Hz: float, end_criterion: float, max_timeste
     ContinuousStructure, openEMS = load()
     fdtd = openEMS(NrTS=int(max_timesteps), EndCriteria=float(end_criterion))
     fdtd.SetGaussExcite(float(f0_Hz), float(fc_Hz))
-    fdtd.SetBoundaryCond(list(boundaries) if boundaries is not None else boundary_conditions(boundary, pml_cells))
+    set_boundaries(fdtd, list(boundaries) if boundaries is not None else boundary_conditions(boundary, pml_cells))
     csx = ContinuousStructure()
     fdtd.SetCSX(csx)
     return fdtd, csx
@@ -128,8 +161,13 @@ def run(fdtd, sim_dir, threads: int = 0, verbose: int = 1) -> None:
 
 _RE_DONE = re.compile(r"Time for\s+(\d+)\s+iterations with\s+([0-9.eE+]+)\s+cells\s*:\s*([0-9.eE+]+)\s*sec")
 _RE_SPEED = re.compile(r"Speed:\s*([0-9.eE+]+)\s*MCells/s")
-_RE_ENERGY = re.compile(r"Energy:\s*~?\s*([0-9.eE+-]+)\s*\(\s*-?\s*([0-9.eE+-]+)\s*dB\)")
+_NUM = r"[-+]?(?:nan|inf|[0-9.]+(?:[eE][-+]?[0-9]+)?)"
+# one progress line: "[@ 4s] Timestep: 1234 || Speed: ... || Energy: ~1.2e-15 (- 12.34dB)"
+_RE_PROGRESS = re.compile(r"Timestep:\s*(\d+)[^\n]*?Energy:\s*~?\s*(" + _NUM + r")\s*\(\s*-?\s*(" + _NUM + r")\s*dB\)",
+                          re.IGNORECASE)
 _RE_CELLS = re.compile(r"-->\s*(\d+)\s*FDTD cells")
+_RE_DT = re.compile(r"FDTD timestep is:\s*(" + _NUM + r")\s*s")
+_RE_EXCITE = re.compile(r"Excitation signal length is:\s*(\d+)\s*timesteps")
 
 
 def parse_engine_log(text: str) -> dict:
@@ -140,10 +178,19 @@ def parse_engine_log(text: str) -> dict:
     dict
         ``timesteps`` (int or None), ``cells`` (int or None), ``engine_runtime_s``, ``speed_MC_per_s``,
         ``max_timesteps_reached`` (the engine's warning was printed), ``last_energy_dB`` (last energy
-        figure of the progress lines, negative, or None), ``finished`` (the closing summary was printed).
+        figure of the progress lines, negative, or None; NaN when the engine printed one that is not a
+        number), ``finished`` (the closing summary was printed), ``timestep_s`` (the engine's FDTD
+        timestep or None), ``excitation_timesteps`` (length of the engine's excitation signal or
+        None) and ``energy_trace``: ``[(timestep, energy, dB below the peak)]`` of every progress
+        line, in order, with ``float('nan')`` / ``inf`` where the engine printed them.
+
+    The engine (0.0.35) prints a progress line every 4 s of wall time and tests its end criterion
+    only there: a field energy that became NaN ends the run like a reached criterion (NaN compares
+    false) and without the max-timesteps warning, so ``finished`` alone says nothing about decay.
     """
     out: dict = {"timesteps": None, "cells": None, "engine_runtime_s": None, "speed_MC_per_s": None,
-                 "max_timesteps_reached": False, "last_energy_dB": None, "finished": False}
+                 "max_timesteps_reached": False, "last_energy_dB": None, "finished": False,
+                 "timestep_s": None, "excitation_timesteps": None, "energy_trace": []}
     m = _RE_CELLS.search(text)
     if m:
         out["cells"] = int(m.group(1))
@@ -155,8 +202,15 @@ def parse_engine_log(text: str) -> dict:
     m = _RE_SPEED.findall(text)
     if m:
         out["speed_MC_per_s"] = float(m[-1])
-    energies = _RE_ENERGY.findall(text)
-    if energies:
-        out["last_energy_dB"] = -abs(float(energies[-1][1]))
+    m = _RE_DT.search(text)
+    if m:
+        out["timestep_s"] = float(m.group(1))
+    m = _RE_EXCITE.search(text)
+    if m:
+        out["excitation_timesteps"] = int(m.group(1))
+    trace = [(int(ts), float(e), float(db)) for ts, e, db in _RE_PROGRESS.findall(text)]
+    out["energy_trace"] = trace
+    if trace:
+        out["last_energy_dB"] = -abs(trace[-1][2])
     out["max_timesteps_reached"] = "Max. number of timesteps was reached" in text
     return out

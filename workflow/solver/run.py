@@ -20,8 +20,9 @@ the engine log, reads the port probes and the raw SAR dump and writes, in ``exci
     ``{"status": "ok"|"failed", "reason", "runtime_s", "cells", "timesteps", ...}``.
 
 Every file is written under a temporary name and renamed into place. A problem of the case (scene
-or mesh refused, engine error, energy decay not reached, NaN, child crash or timeout) gives a
-``failed`` status with the reason and does not raise.
+or mesh refused, engine error, energy decay not reached, field energy NaN or growing, a run shorter
+than its excitation pulse (see :mod:`.health`), NaN in the port signals, child crash or timeout)
+gives a ``failed`` status with the reason and does not raise.
 
 Inputs read from the case folder: ``case.json`` (``frequency_Hz``, ``solver``, ``sar``, ``scene``),
 ``scene.json`` when present (the built scene; else the scene is built from ``case.json``), and an
@@ -34,7 +35,6 @@ import argparse
 import json
 import os
 import shutil
-import subprocess
 import sys
 import time
 import traceback
@@ -43,12 +43,17 @@ from types import SimpleNamespace
 
 import numpy as np
 
+from .child import CHILD_ERROR as _CHILD_ERROR
+from .cost import excitation_pulse
+from .child import DIVERGED_RC as _DIVERGED_RC
+from .child import child_reason as _child_reason
+from .child import start_child as _start_child
+
 __all__ = ["solve_excitation", "solve_solver_sar", "excitation_pulse", "load_case_inputs", "SAR_DUMP_NAME"]
 
 SAR_DUMP_NAME = "sar_raw"
 SOLVER_SAR_NAMES = {0.001: "sar_avg_1g", 0.01: "sar_avg_10g"}
 _CHILD_SETUP = "child_setup.json"
-_CHILD_ERROR = "child_error.json"
 _SCRATCH = ".engine_run"
 _SOLVER_SAR_FILES = ("solver_sar.h5", "solver_sar_status.json", "solver_sar.log")
 
@@ -69,17 +74,6 @@ def _atomic(path: Path):
     from bodysweep.workflow.atomic import atomic_path
 
     return atomic_path(path)
-
-
-def excitation_pulse(frequency_Hz: float, band_fraction: float) -> tuple[float, float]:
-    """Centre and -20 dB half-bandwidth ``(f0, fc)`` of the Gaussian pulse for a case.
-
-    The pulse is centred on the case frequency and covers at least the S-parameter band
-    ``f (1 +- band_fraction / 2)``: ``fc = f clip(band_fraction, 0.5, 0.9)``. Half a band of at least
-    ``0.5 f`` keeps the pulse short (few timesteps); ``fc < f`` keeps DC out of the spectrum.
-    """
-    fc = float(frequency_Hz) * float(np.clip(band_fraction, 0.5, 0.9))
-    return float(frequency_Hz), fc
 
 
 def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
@@ -184,34 +178,6 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
 
 # ------------------------------------------------------------------------------------------------
 # parent side
-def _start_child(case_dir: Path, port: int, threads: int, work: Path, mode: str, timeout_s: float | None):
-    cmd = [sys.executable, "-m", "bodysweep.workflow.solver.run", "child", str(case_dir), "--port", str(port),
-           "--threads", str(threads), "--work", str(work), "--mode", mode]
-    log = work / "console.log"
-    with open(log, "wb") as fh:
-        try:
-            proc = subprocess.run(cmd, stdout=fh, stderr=subprocess.STDOUT, timeout=timeout_s,
-                                  env={**os.environ, "PYTHONUNBUFFERED": "1"})
-            rc = proc.returncode
-        except subprocess.TimeoutExpired:
-            rc = None
-    return rc, log.read_text(errors="replace")
-
-
-def _child_reason(rc, work: Path, log_text: str, timeout_s) -> str | None:
-    """The failure reason of a child run, or None if it ended cleanly."""
-    err = work / _CHILD_ERROR
-    if err.exists():
-        return json.loads(err.read_text())["reason"]
-    if rc is None:
-        return f"engine run exceeded the time limit of {timeout_s} s and was stopped"
-    if rc != 0:
-        tail = [ln for ln in log_text.strip().splitlines() if ln.strip()][-3:]
-        how = f"killed by signal {-rc}" if rc < 0 else f"exit code {rc}"
-        return _one_line(f"engine process ended with {how}: {' | '.join(tail)}")
-    return None
-
-
 def _raw_dump2arrays(path: Path) -> dict[str, np.ndarray]:
     """Read openEMS's raw SAR dump (dump_type 29, HDF5) into ``(nx, ny, nz)``-ordered arrays.
 
@@ -350,6 +316,7 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
         The status written to ``status.json``.
     """
     from . import engine
+    from .health import judge_run
     from .ports import PortProbes, probe_signals, signals2phasors
 
     t0 = time.monotonic()
@@ -379,8 +346,13 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
                       max_timesteps=setup.get("max_timesteps"), end_criterion_dB=setup.get("end_criterion_dB"),
                       build_notes=setup.get("notes", []) + [f"clipped to interior: {c}" for c in setup.get("clipped", [])])
         reason = _child_reason(rc, work, log_text, timeout_s)
-        decay = bool(info["finished"] and not info["max_timesteps_reached"])
-        status["decay_reached"] = decay
+        verdict = judge_run(info, setup.get("pulse_fc_Hz"), setup.get("end_criterion_dB"))
+        decay = bool(info["finished"] and verdict["decay_reached"])
+        status.update(decay_reached=decay, timestep_s=info["timestep_s"],
+                      excitation_timesteps=verdict["excitation_timesteps"],
+                      excitation_passed_timesteps=verdict["excitation_passed_timesteps"])
+        if reason is None and rc == _DIVERGED_RC:  # stopped by us mid-write: the probe files may be cut
+            reason = verdict["reason"] or "engine stopped at a non-finite field energy"
         if reason is None and not info["finished"]:
             reason = "engine log has no closing summary; the run did not finish"
         if reason is None:
@@ -408,12 +380,14 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
             attrs = {"timesteps": int(info["timesteps"] or 0), "decay_reached": decay, "excited_port": port,
                      "pulse_f0_Hz": setup["pulse_f0_Hz"], "pulse_fc_Hz": setup["pulse_fc_Hz"]}
             _write_signals(out_dir / "signals.h5", port_data, f_band, f0, attrs)
-            if not finite:
+            if verdict["reason"]:  # diverged, grew or truncated: the signals stay for inspection only
+                reason = verdict["reason"]
+            elif not finite:
                 reason = "port signals contain NaN or infinity (unstable run or bad material values)"
             elif not decay:
                 reason = (f"energy decay to {setup.get('end_criterion_dB')} dB not reached within "
-                          f"{setup.get('max_timesteps')} timesteps (last reported energy "
-                          f"{info['last_energy_dB']} dB)")
+                          f"{info['timesteps']} timesteps (max_timesteps {setup.get('max_timesteps')}; last "
+                          f"reported energy {info['last_energy_dB']} dB)")
             if reason is None and port == 1:
                 raw = work / "sim" / f"{SAR_DUMP_NAME}.h5"
                 if not raw.exists():

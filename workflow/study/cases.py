@@ -4,7 +4,6 @@ from __future__ import annotations
 import copy
 import functools
 import hashlib
-import importlib
 import json
 import itertools
 from dataclasses import dataclass, field
@@ -13,7 +12,7 @@ from typing import Any, Callable
 from bodysweep.geometry.units import from_edge_units
 
 from .edge_checks import check_edge_values
-from .errors import StudyError, join_path
+from .errors import StudyError, join_path, si2edge_text
 from .expressions import evaluate
 from .identity import CASE_ID_LENGTH, _normalise, canonical_json, code_versions
 from .paths import has_path, parent_exists, path2parts, set_path
@@ -131,28 +130,10 @@ def sar2si(sar: dict) -> dict:
     }
 
 
-def _optional(module: str, attr: str) -> Callable | None:
-    try:
-        obj = importlib.import_module(module)
-    except ImportError:
-        return None
-    for part in attr.split("."):
-        obj = getattr(obj, part, None)
-        if obj is None:
-            return None
-    return obj  # type: ignore[return-value]
-
-
-def _resolver(module: str, attr: str) -> Callable[[dict], dict] | None:
-    """``d -> from_dict(d).to_dict()`` (or ``d -> d`` checked only) when the builder exists."""
-    build = _optional(module, attr)
-    if build is None:
-        return None
-
+def _resolver(build: Callable[[dict], Any]) -> Callable[[dict], dict]:
+    """``d -> build(d).to_dict()``: a section in the form its builder gives back (defaults filled in)."""
     def resolve(d: dict) -> dict:
-        obj = build(plain_copy(d))
-        to_dict = getattr(obj, "to_dict", None)
-        return to_dict() if callable(to_dict) else d
+        return build(plain_copy(d)).to_dict()
 
     return resolve
 
@@ -173,7 +154,7 @@ def _integer_solver_paths() -> frozenset[str]:
     """``solver.<key>`` paths whose schema type is integer."""
     from .schema import _read_json
 
-    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json") or {}
+    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json")
     return frozenset(f"solver.{k}" for k, v in schema.get("properties", {}).items()
                      if isinstance(v, dict) and v.get("type") == "integer")
 
@@ -283,7 +264,7 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     Within the product the first block varies slowest; within a block the rows keep their order.
     Each case's edge-unit scene is validated against the scene schema (when a sweep or derived value
     changed it), then checked with ``bodysweep.geometry.scene.Scene.from_dict``, and its solver section
-    with ``settings_from_dict``, when those exist (``check_scene=False`` skips both scene checks),
+    with ``settings_from_dict`` (``check_scene=False`` skips both scene checks),
     so geometry errors surface here with the case label. Cases that resolve to the same content
     (same id) are kept once, at their first position.
 
@@ -293,8 +274,12 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
         A path missing in some case, an expression failing for some case, a value out of range in
         some case, or the scene / solver builders refusing a case (key path ``scene`` / ``solver``).
     """
-    scene_resolve = _resolver("bodysweep.geometry.scene", "Scene.from_dict") if check_scene else None
-    solver_resolve = _resolver("bodysweep.workflow.solver.settings", "settings_from_dict")
+    from bodysweep.geometry.scene import Scene
+
+    from ..solver.settings import settings_from_dict
+
+    scene_resolve = _resolver(Scene.from_dict) if check_scene else None
+    solver_resolve = _resolver(settings_from_dict)
     versions = code_versions()
     sar = sar2si(study.raw["sar"])
     excite = tuple(study.excite_ports)
@@ -335,8 +320,8 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
                     else:
                         scene_si = plain_copy(resolved[key])
                 except (ValueError, TypeError, KeyError) as exc:
-                    raise StudyError("scene", f"in case {label}: {exc}", None, "a scene the builders accept",
-                                     show_value=False) from None
+                    raise StudyError("scene", f"in case {label}: {si2edge_text(str(exc))}", None,
+                                     "a scene the builders accept", show_value=False) from None
             if solver_resolve is not None:
                 try:
                     text = repr(solver_si)

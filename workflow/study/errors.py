@@ -1,6 +1,7 @@
 """The one error type of the study layer: names the key, the bad value and what is allowed, on one line."""
 from __future__ import annotations
 
+import re
 from typing import Any
 
 #: longest rendering of a bad value inside a message
@@ -71,3 +72,24 @@ def _rebuild(key_path, problem, value, allowed, show_value):
 def join_path(*parts: Any) -> str:
     """Dotted key path from parts (strings and list indexes); empty parts are skipped."""
     return ".".join(str(p) for p in parts if p is not None and str(p) != "")
+
+
+_NUM = r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
+
+
+def _mm(x: str) -> str:
+    return f"{float(x) * 1e3:.4g}"
+
+
+def si2edge_text(text: str) -> str:
+    """A builder's message (SI: metres, keys ending ``_m``) in the study file's own units and key names.
+
+    ``(0, -0.008, -0.066) m`` -> ``(0, -8, -66) mm``; ``0.06 m`` -> ``60 mm``; ``depth_m`` -> ``depth_mm``.
+    Other units (``mm``, ``m3``, ``W/kg``) are left alone.
+    """
+    text = re.sub(rf"\(\s*({_NUM}(?:\s*,\s*{_NUM})*)\s*\)\s*m\b",
+                  lambda m: "(" + ", ".join(_mm(x) for x in m.group(1).split(",")) + ") mm", text)
+    text = re.sub(rf"\[\s*({_NUM}(?:\s*,\s*{_NUM})*)\s*\]\s*m\b",
+                  lambda m: "[" + ", ".join(_mm(x) for x in m.group(1).split(",")) + "] mm", text)
+    text = re.sub(rf"(?<![\w.])({_NUM})\s*m\b(?![/\w])", lambda m: f"{_mm(m.group(1))} mm", text)
+    return re.sub(r"\b([A-Za-z][A-Za-z0-9]*(?:_[A-Za-z0-9]+)*)_m\b", r"\1_mm", text)

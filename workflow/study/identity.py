@@ -59,15 +59,9 @@ def content2case_id(content: dict) -> str:
 
 
 def code_versions() -> dict[str, str]:
-    """Versions of the code parts whose change alters results: builder, adapter, post ("1" if undefined)."""
-    import importlib
+    """Versions of the code parts whose change alters results: builder, adapter, post."""
+    from bodysweep.geometry import BUILDER_VERSION
+    from bodysweep.workflow.post import POST_VERSION
+    from bodysweep.workflow.solver import ADAPTER_VERSION
 
-    out = {}
-    for key, module, name in (("builder", "bodysweep.geometry", "BUILDER_VERSION"),
-                              ("adapter", "bodysweep.workflow.solver", "ADAPTER_VERSION"),
-                              ("post", "bodysweep.workflow.post", "POST_VERSION")):
-        try:
-            out[key] = str(getattr(importlib.import_module(module), name, "1"))
-        except ImportError:
-            out[key] = "1"
-    return out
+    return {"builder": str(BUILDER_VERSION), "adapter": str(ADAPTER_VERSION), "post": str(POST_VERSION)}

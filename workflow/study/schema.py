@@ -2,8 +2,7 @@
 
 ``workflow/schema/study.schema.json`` references ``scene.schema.json`` (shipped by
 :mod:`bodysweep.geometry` in ``geometry/data/``) and ``solver.schema.json`` (``workflow/schema/``).
-Missing referenced schemas are replaced by ``{"type": "object"}`` so that the study layer works while
-the other sections are still being written.
+All three are package data; a missing one is an installation error, never replaced by a looser schema.
 """
 from __future__ import annotations
 
@@ -22,34 +21,29 @@ from .errors import StudyError, join_path, value2text
 STUDY_SCHEMA_URI = "bodysweep/study.schema.json"
 SCENE_SCHEMA_URI = "bodysweep/scene.schema.json"
 SOLVER_SCHEMA_URI = "bodysweep/solver.schema.json"
-_ANY_OBJECT = {"$schema": "https://json-schema.org/draft/2020-12/schema", "type": "object"}
 
 
-def _read_json(package: str, *parts: str) -> dict | None:
-    try:
-        node = resources.files(package)
-        for p in parts:
-            node = node / p
-        if not node.is_file():
-            return None
-        return json.loads(node.read_text(encoding="utf-8"))
-    except (ModuleNotFoundError, FileNotFoundError):
-        return None
+def _read_json(package: str, *parts: str) -> dict:
+    """A JSON file shipped as package data (``RuntimeError`` naming it when the installation lacks it)."""
+    node = resources.files(package)
+    for p in parts:
+        node = node / p
+    if not node.is_file():
+        raise RuntimeError(f"{package}/{'/'.join(parts)} is missing from the installation of bodysweep; "
+                           "reinstall the package")
+    return json.loads(node.read_text(encoding="utf-8"))
 
 
 def study_schema() -> dict:
     """The study schema as a dict (a fresh copy)."""
-    schema = _read_json("bodysweep.workflow", "schema", "study.schema.json")
-    if schema is None:  # pragma: no cover - shipped with the package
-        raise RuntimeError("workflow/schema/study.schema.json is missing from the installation")
-    return schema
+    return _read_json("bodysweep.workflow", "schema", "study.schema.json")
 
 
 def _resources() -> list[tuple[str, referencing.Resource]]:
     out = []
     for uri, package, parts in ((SCENE_SCHEMA_URI, "bodysweep.geometry", ("data", "scene.schema.json")),
                                 (SOLVER_SCHEMA_URI, "bodysweep.workflow", ("schema", "solver.schema.json"))):
-        contents = _read_json(package, *parts) or dict(_ANY_OBJECT)
+        contents = _read_json(package, *parts)
         res = referencing.Resource.from_contents(contents, default_specification=DRAFT202012)
         out.append((uri, res))
         own = res.id()
@@ -112,6 +106,27 @@ def sch_props(err: ValidationError) -> list[str]:
     return list(err.schema.get("properties", {})) if isinstance(err.schema, dict) else []
 
 
+def did_you_mean(name: str, choices) -> str:
+    """`` (did you mean X?)`` for the nearest of ``choices`` (difflib), else ``""``."""
+    import difflib
+
+    near = difflib.get_close_matches(str(name), [str(c) for c in choices], n=1, cutoff=0.6)
+    return f" (did you mean {near[0]}?)" if near else ""
+
+
+def _looks_like_hz(err: ValidationError) -> str:
+    """``"403000000 Hz = 403 MHz"`` when the value divided by 1e6 falls in the allowed range, else ``""``."""
+    sch = err.schema if isinstance(err.schema, dict) else {}
+    x = err.instance
+    if isinstance(x, bool) or not isinstance(x, (int, float)):
+        return ""
+    lo = sch.get("minimum", sch.get("exclusiveMinimum", 0))
+    hi = sch.get("maximum", sch.get("exclusiveMaximum"))
+    if hi is None or not (lo <= x / 1e6 <= hi):
+        return ""
+    return f"{x:.10g} Hz = {x / 1e6:.10g} MHz"
+
+
 def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
     """Turn one schema error into a one-line :class:`StudyError` naming the key path."""
     path = join_path(prefix, *err.absolute_path)
@@ -124,7 +139,8 @@ def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
     if v in ("additionalProperties", "unevaluatedProperties") and err.validator_value is False:
         unknown = _unknown_keys(err)
         name = unknown[0] if unknown else "?"
-        return StudyError(join_path(path, name), "unknown key", name, _allowed(err))
+        return StudyError(join_path(path, name), "unknown key" + did_you_mean(name, sch_props(err)), name,
+                          _allowed(err))
     if v == "propertyNames":
         bad = err.instance
         return StudyError(path, f"bad name {value2text(bad)}", bad, "names of letters, digits and _ (not starting with a digit)")
@@ -135,6 +151,14 @@ def error2study_error(err: ValidationError, prefix: str = "") -> StudyError:
         return StudyError(path, "must not be empty", err.instance, _allowed(err))
     if v == "minItems" and isinstance(err.instance, list) and not err.instance:
         return StudyError(path, "must not be empty", err.instance, _allowed(err))
+    if v == "enum" and isinstance(err.instance, str):
+        return StudyError(path, "not an allowed value" + did_you_mean(err.instance, [str(x) for x in err.validator_value]),
+                          err.instance, _allowed(err))
+    if v in ("maximum", "exclusiveMaximum") and "_MHz" in str(path):
+        hz = _looks_like_hz(err)
+        if hz:
+            return StudyError(path, f"too large: this looks like Hz ({hz}); give the frequency in MHz", err.instance,
+                              _allowed(err))
     problem = {
         "type": "wrong type",
         "enum": "not an allowed value",
@@ -174,7 +198,7 @@ def solver_key_defaults() -> dict[str, Any]:
 
     A sweep may change such a key even when the study file leaves it out (it then has its preset value).
     """
-    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json") or {}
+    schema = _read_json("bodysweep.workflow", "schema", "solver.schema.json")
     return {k: v.get("default") for k, v in schema.get("properties", {}).items() if isinstance(v, dict)}
 
 
@@ -219,7 +243,7 @@ class CaseSceneChecker:
         from .identity import canonical_json
 
         self._text = canonical_json
-        contents = _read_json("bodysweep.geometry", "data", "scene.schema.json") or _ANY_OBJECT
+        contents = _read_json("bodysweep.geometry", "data", "scene.schema.json")
         self._sectionwise = set(contents) <= _SECTIONWISE_KEYWORDS
         self._properties = set(contents.get("properties", {}))
         self._shapes: set[tuple] = set()

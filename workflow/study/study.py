@@ -295,6 +295,57 @@ def _sar_checks(raw: dict) -> None:
                              lim["mass_g"], ", ".join(f"{m:g}" for m in masses))
 
 
+def _tissue_checks(raw: dict) -> None:
+    """Every ``tissue:`` in the scene and in the sweep's options names a built-in tissue or a declared material."""
+    import difflib
+
+    from bodysweep.geometry.tissues import builtin_tissues
+
+    known = sorted(builtin_tissues())
+    declared = sorted(str(m.get("name")) for m in (raw["scene"].get("materials") or []) if isinstance(m, dict))
+
+    def walk(node, path):
+        if isinstance(node, dict):
+            for k, v in node.items():
+                if k == "tissue" and isinstance(v, str) and v not in known and v not in declared:
+                    near = difflib.get_close_matches(v, known + declared, n=1)
+                    raise StudyError(join_path(path, k), "unknown tissue" + (f" (did you mean {near[0]}?)" if near else ""),
+                                     v, "built-in tissues " + ", ".join(known)
+                                     + (" or the scene's materials " + ", ".join(declared) if declared else ""))
+                walk(v, join_path(path, k))
+        elif isinstance(node, list):
+            for i, v in enumerate(node):
+                walk(v, join_path(path, i))
+
+    walk(raw["scene"], "scene")
+    for name, par in ((raw.get("sweep") or {}).get("parameters") or {}).items():
+        if isinstance(par, dict) and isinstance(par.get("options"), dict):
+            walk(par["options"], f"sweep.parameters.{name}.options")
+
+
+def _baseline_checks(raw: dict, blocks: tuple[Block, ...]) -> None:
+    """A baseline mapping names swept parameters and values they take (a case id is checked by the report)."""
+    import difflib
+
+    base = raw.get("baseline")
+    if not isinstance(base, dict):
+        return
+    values: dict[str, list] = {}
+    for b in blocks:
+        for i, n in enumerate(b.names):
+            values.setdefault(n, []).extend(r[i] for r in b.rows)
+    for name, v in base.items():
+        if name not in values:
+            near = difflib.get_close_matches(name, list(values), n=1)
+            raise StudyError(f"baseline.{name}", "not a swept parameter" + (f" (did you mean {near[0]}?)" if near else ""),
+                             name, ", ".join(values) or "no parameter is swept")
+        taken = values[name]
+        if not any(str(v) == str(t) or (isinstance(t, (int, float)) and isinstance(v, (int, float)) and
+                                        float(t) == float(v)) for t in taken):
+            raise StudyError(f"baseline.{name}", "a value this parameter never takes", v,
+                             ", ".join(dict.fromkeys(str(t) for t in taken)))
+
+
 def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None = None) -> Study:
     """Parse (safely), validate and resolve a study.
 
@@ -337,6 +388,7 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
         raise StudyError("study", "not a plain folder name", name, "letters, digits, '-' and '_'")
     base = {"scene": raw["scene"], "solver": raw["solver"]}
     check_edge_values(base)
+    _tissue_checks(raw)
     _sar_checks(raw)
     excite = _excite(raw, data)
     limit = int(max_cases if max_cases is not None else raw["budget"]["max_cases"])
@@ -344,5 +396,6 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
     params = _parameters(raw, base)
     blocks = _blocks(raw, params, base, len(freqs), limit)
     derived = _derived(raw, params, base, {n for b in blocks for n in b.names})
+    _baseline_checks(raw, blocks)
     return Study(name=name, frequencies_Hz=freqs, raw=raw, parameters=params, blocks=blocks, derived=derived,
                  excite_ports=excite, max_cases=limit, source=origin)

@@ -27,6 +27,8 @@ from __future__ import annotations
 import copy
 import random
 
+from ..layout import budget_map, is_budget_run  # noqa: F401  (plan-entry helpers, re-exported)
+
 #: components and whether each needs an extra run
 COMPONENTS = ("mesh", "boundary", "tissue", "power_balance", "end_criterion")
 RUN_COMPONENTS = ("mesh", "boundary", "tissue", "end_criterion")
@@ -114,8 +116,14 @@ def variant(case: dict, component: str, cfg: dict) -> dict:
     return out
 
 
+#: summary column of each ``rank_by`` choice (the others name their column)
+RANK_COLUMNS = {"figure_of_merit": "figure_of_merit_value"}
+
+
 def _merit(layout, case_ids: list[str], rank_by: str) -> dict[str, float]:
     """Figure of merit of each case that has a result (from the collector's summary of those cases)."""
+    import pandas as pd
+
     from bodysweep.workflow.collect import collect_frames
 
     entries = [{"case_id": c, "label": "", "parameters": {}} for c in case_ids
@@ -123,8 +131,12 @@ def _merit(layout, case_ids: list[str], rank_by: str) -> dict[str, float]:
     if not entries:
         return {}
     s = collect_frames(layout, entries, band=False)["summary"]
-    s = s[s["status"] == "ok"]
-    return {str(r["case_id"]): float(r[rank_by]) for _, r in s.iterrows() if r[rank_by] == r[rank_by]}
+    s = s[s["status"].isin(["ok", "warning"])]
+    col = RANK_COLUMNS.get(rank_by, rank_by)
+    if col not in s:
+        return {}
+    vals = pd.to_numeric(s[col], errors="coerce")
+    return {str(c): float(v) for c, v in zip(s["case_id"], vals) if v == v}
 
 
 def selection(cfg: dict, case_ids: list[str], layout=None) -> tuple[list[str], str]:
@@ -185,20 +197,6 @@ def budget_note(raw: dict, entries: list[dict], layout=None) -> str:
     comps = [c for c in cfg["components"] if c in RUN_COMPONENTS]
     return (f"uncertainty budget: component runs ({', '.join(comps)}) for {how}: {len(runs)} runs in the table "
             "above (labels [<component> run for <case id>]); the other cases get the study-level budget")
-
-
-def budget_map(entries: list[dict]) -> dict[str, dict[str, str]]:
-    """``{case id: {component: id of its run}}`` from plan entries (their ``budget`` lists)."""
-    out: dict[str, dict[str, str]] = {}
-    for e in entries:
-        for b in e.get("budget") or []:
-            out.setdefault(b["of"], {})[b["component"]] = e["case_id"]
-    return out
-
-
-def is_budget_run(entry: dict) -> bool:
-    """Whether a plan entry is only a component run (not a case of the study's own sweep)."""
-    return bool(entry.get("budget")) and "uncertainty_run" in (entry.get("parameters") or {})
 
 
 __all__ = ["COMPONENTS", "RUN_COMPONENTS", "budget_settings", "variant", "selection", "budget_case_dicts",

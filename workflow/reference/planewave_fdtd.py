@@ -50,7 +50,7 @@ surface, in the middle of the last layer) check that the field has rung down:
 :attr:`PlaneWaveResult.tail_ratio` is the largest ``|E|`` over the last 10 % of the record relative to
 the peak.
 
-The engine runs in a child process (``python -m bodysweep.workflow.solver.planewave SPEC.json SIM_DIR``)
+The engine runs in a child process (``python -m bodysweep.workflow.reference.planewave_fdtd SPEC.json SIM_DIR``)
 like every case run: the engine changes the working directory and may call ``exit()``.
 """
 from __future__ import annotations
@@ -203,7 +203,7 @@ TIMESTEP_FRACTION = 0.99
 
 def timestep_s(setup: PlaneWaveSetup) -> float:
     """The forced timestep of both runs (s): :data:`TIMESTEP_FRACTION` of the vacuum Courant limit."""
-    from .cost import courant_timestep
+    from ..solver.cost import courant_timestep
 
     m = plane_wave_mesh(setup)
     return TIMESTEP_FRACTION * courant_timestep(*(float(np.diff(m[f"lines_{a}"]).min()) for a in "xyz"))
@@ -211,7 +211,7 @@ def timestep_s(setup: PlaneWaveSetup) -> float:
 
 def run_timesteps(setup: PlaneWaveSetup) -> int:
     """Timesteps of a run: pulse plus ring-down (module notes) at :func:`timestep_s`."""
-    from .cost import gaussian_pulse_length_s
+    from ..solver.cost import gaussian_pulse_length_s
 
     m = plane_wave_mesh(setup)
     dt = timestep_s(setup)
@@ -250,7 +250,7 @@ def _child_spec(setup: PlaneWaveSetup, with_stack: bool) -> dict:
 
 def _child(spec_file: str, sim_dir: str, threads: int) -> int:
     """Build and run one plane-wave run (child process side)."""
-    from . import engine
+    from ..solver import engine
 
     spec = json.loads(Path(spec_file).read_text())
     f0 = float(spec["f_Hz"])
@@ -338,12 +338,12 @@ class PlaneWaveResult:
 
 
 def _run_child(spec: dict, work: Path, threads: int, timeout_s: float | None) -> tuple[dict, dict]:
-    from . import engine
-    from .run import _raw_dump2arrays, _trim_to_mesh
+    from ..solver import engine
+    from ..solver.run import _raw_dump2arrays, _trim_to_mesh
 
     work.mkdir(parents=True, exist_ok=True)
     (work / "spec.json").write_text(json.dumps(spec))
-    cmd = [sys.executable, "-m", "bodysweep.workflow.solver.planewave", str(work / "spec.json"), str(work / "sim"),
+    cmd = [sys.executable, "-m", "bodysweep.workflow.reference.planewave_fdtd", str(work / "spec.json"), str(work / "sim"),
            "--threads", str(threads)]
     proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
     log = proc.stdout + proc.stderr
@@ -354,7 +354,7 @@ def _run_child(spec: dict, work: Path, threads: int, timeout_s: float | None) ->
         tail = " | ".join([ln for ln in log.strip().splitlines() if ln.strip()][-3:])
         raise RuntimeError(f"plane-wave run in {work} failed (exit code {proc.returncode}): {tail}")
     arrays = _trim_to_mesh(_raw_dump2arrays(raw), spec["lines"])
-    from .ports import read_probe
+    from ..solver.ports import read_probe
 
     tails = []
     for name in spec["probes"]:
@@ -405,7 +405,7 @@ def solve_plane_wave(setup: PlaneWaveSetup, work_dir, threads: int = 1,
     g_i = (ex_t[air] - ex_i[air]) / ex_i[air] * np.exp(2j * k * z[air])
     gamma = complex(np.mean(g_i))
     s_inc = float(np.mean(np.abs(ex_i[air]) ** 2)) / (2 * ETA0)
-    from .run import centres2edges
+    from ..solver.run import centres2edges
 
     return PlaneWaveResult(z_m=z, z_edges_m=centres2edges(z, m["lines_z"]), layer_index=layer, e_total=ex_t,
                            e_incident=ex_i,
