@@ -398,7 +398,7 @@ def _run_locked(a, lock, log: Path) -> int:
     states = case_states(prep.layout, prep.entries)
     failed = [(e, why) for e, (s, why) in zip(prep.entries, states) if s == "failed"]
     print(f"done: {len(prep.entries) - len(failed)} of {len(prep.entries)} cases have results")
-    print(f"tables: {prep.layout.tables_dir}/ (summary, sparams, sar as .parquet and .csv)")
+    print(f"tables: {prep.layout.tables_dir}/ (summary, sparams, sar, uncertainty as .parquet and .csv)")
     print(f"report: {prep.layout.report_file}")
     if failed:
         for e, why in failed[:20]:
@@ -556,7 +556,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--skip-failed", action="store_true",
                    help="keep earlier failures as they are (the default; for explicit scripts)")
     budget(p)
-    add("collect", "merge the case results into tables/summary, sparams, sar (.parquet and .csv)", cmd_collect)
+    add("collect", "merge the case results into tables/summary, sparams, sar, uncertainty (.parquet and .csv)", cmd_collect)
     p = add("preview", "write (if needed) and print the path of a case's three-plane preview PNG", cmd_preview)
     p.add_argument("case", help="case id, label, or index in the study's case list")
     p.add_argument("--output", default=None, help="write the PNG here instead of the case folder")

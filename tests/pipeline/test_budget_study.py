@@ -93,6 +93,13 @@ def test_columns_beside_each_quantity_and_the_conservative_power(ran):
     assert "## Uncertainty budget" in report and (root / "report" / "uncertainty_error_bars.png").exists()
 
 
+def test_verify_accepts_the_budget_runs(ran, monkeypatch, capsys):
+    work, _ = ran
+    monkeypatch.chdir(work)
+    assert cli.main(["verify", str(STUDY)]) == 0, capsys.readouterr().out
+
+
+# last: it prepares an edited copy of the study in the same results folder (a new plan.json)
 def test_rerun_free_and_only_the_changed_component_reruns(ran):
     work, _ = ran
     assert scheduled_jobs(STUDY, workdir=work) == {}
@@ -102,9 +109,3 @@ def test_rerun_free_and_only_the_changed_component_reruns(ran):
     p.write_text(yaml.safe_dump(d, sort_keys=False))
     counts = scheduled_jobs(p, workdir=work)
     assert {r: counts.get(r, 0) for r in ("scene", "solve", "finish")} == {"scene": 2, "solve": 2, "finish": 2}
-
-
-def test_verify_accepts_the_budget_runs(ran, monkeypatch, capsys):
-    work, _ = ran
-    monkeypatch.chdir(work)
-    assert cli.main(["verify", str(STUDY)]) == 0, capsys.readouterr().out

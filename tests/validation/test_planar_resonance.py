@@ -47,7 +47,7 @@ def test_inverted_f_resonates_at_the_quarter_wave_estimate(tmp_path):
 
     res = run_study(tmp_path, _study())
     summary = pd.read_parquet(res / "tables" / "summary.parquet")
-    assert (summary["status"] == "ok").all(), summary[["status"]].to_string()
+    assert summary["status"].isin(("ok", "warning")).all(), summary[["status"]].to_string()
     sp = pd.read_parquet(res / "tables" / "sparams.parquet")
     s22 = sp[(sp["i"] == 2) & (sp["j"] == 2)].sort_values("frequency_MHz")
     f = s22["frequency_MHz"].to_numpy()
