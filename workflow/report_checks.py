@@ -43,7 +43,7 @@ def plot_error_bars(summary: pd.DataFrame, path, max_cases: int = 40):
     for sel, mfc, text in ((own, "C2", "own budget"), (~own, "white", "study-level budget (no own runs)")):
         if sel.any():
             a2.errorbar(x[sel], p[sel], yerr=[lo[sel], np.zeros(int(sel.sum()))], fmt="s", capsize=3, color="C2",
-                        mfc=mfc, label=f"SAR-limited accepted power ({text}); bar: down to the conservative value")
+                        mfc=mfc, label=text)
     labels = ok["label"].astype(str).where(ok["label"].astype(str) != "", ok["case_id"])
     for ax in (a1, a2):
         ax.set_xticks(x, labels, rotation=70, ha="right", fontsize=7)
@@ -52,7 +52,7 @@ def plot_error_bars(summary: pd.DataFrame, path, max_cases: int = 40):
     a1.set_ylabel("peak averaged SAR (W/kg per W accepted)")
     a1.set_title("Peak SAR, bars: expanded uncertainty (k = 2)", fontsize=10)
     a2.set_ylabel("SAR-limited accepted power at port 1 (dBm)")
-    a2.set_title("SAR-limited accepted power", fontsize=10)
+    a2.set_title("SAR-limited accepted power, bar: down to its conservative value", fontsize=10)
     return _save(fig, path)
 
 
