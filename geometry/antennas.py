@@ -263,13 +263,14 @@ class Loop:
                 "bridge_height_m": self.bridge_height_m, "conductor": self.conductor}
 
 
+from .cad import CadPart  # noqa: E402
 from .planar import PLANAR_TYPES, InvertedF, MeanderLine, Spiral  # noqa: E402
 
-Element = Dipole | Loop | InvertedF | MeanderLine | Spiral
-ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop, **PLANAR_TYPES}
+Element = Dipole | Loop | InvertedF | MeanderLine | Spiral | CadPart
+ELEMENT_TYPES: dict[str, type] = {"dipole": Dipole, "loop": Loop, **PLANAR_TYPES, "cad": CadPart}
 
 
-EXTERNAL_TYPES = ("dipole", "loop")  # planar boards are implant antennas
+EXTERNAL_TYPES = ("dipole", "loop", "cad")  # planar boards are implant antennas
 
 
 def _element_from(d: Mapping, part: str, allowed=tuple(ELEMENT_TYPES)) -> Element:

@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from .model import SceneModel
-from .primitives import AXES, Box, Cylinder, Polygon, Wire, axis_index
+from .primitives import AXES, Box, Cylinder, Polygon, Polyhedron, Wire, axis_index
 from .raster import material_index
 from .shapes import polygon_vertices
 
@@ -86,7 +86,15 @@ def _conductor_outlines(prim, ha: int, va: int):
     if isinstance(prim, Polygon):
         v = polygon_vertices(prim)[: len(prim.points)]
         return [np.concatenate([v, v[:1]])[:, [ha, va]]]
-    if isinstance(prim, (Box, Cylinder)):
+    if isinstance(prim, Polyhedron):
+        pts = np.asarray(prim.vertices)[:, [ha, va]]
+        from scipy.spatial import ConvexHull, QhullError
+        try:
+            ring = pts[ConvexHull(pts).vertices]
+            return [np.concatenate([ring, ring[:1]])]
+        except QhullError:  # flat in this projection: the bounding rectangle below
+            pass
+    if isinstance(prim, (Box, Cylinder, Polyhedron)):
         lo, hi = prim.bounds()
         return [np.array([(lo[ha], lo[va]), (hi[ha], lo[va]), (hi[ha], hi[va]), (lo[ha], hi[va]), (lo[ha], lo[va])])]
     return []

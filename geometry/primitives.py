@@ -234,6 +234,40 @@ class Polygon:
 
 
 @dataclass(frozen=True)
+class Polyhedron:
+    """Closed solid bounded by triangles: ``vertices`` shape (n, 3) in metres, ``faces`` shape (m, 3).
+
+    Each face lists three vertex indexes. The surface must be closed (every edge shared by exactly
+    two faces); :func:`bodysweep.geometry.cad.check_closed` checks it where a mesh enters a scene.
+    """
+
+    name: str
+    material: str
+    vertices: tuple[Vec3, ...]
+    faces: tuple[tuple[int, int, int], ...]
+    priority: int = PRIORITY_CONDUCTOR
+    kind: Literal["polyhedron"] = field(default="polyhedron", init=False)
+
+    def __post_init__(self):
+        v = tuple(_vec(q, f"polyhedron {self.name!r} vertex") for q in self.vertices)
+        f = tuple(tuple(int(i) for i in t) for t in self.faces)
+        if len(v) < 4 or len(f) < 4:
+            raise ValueError(f"polyhedron {self.name!r} needs at least 4 vertices and 4 faces, "
+                             f"got {len(v)} and {len(f)}")
+        for t in f:
+            if len(t) != 3 or min(t) < 0 or max(t) >= len(v):
+                raise ValueError(f"polyhedron {self.name!r}: face {t} must be three vertex indexes "
+                                 f"from 0 to {len(v) - 1}")
+        object.__setattr__(self, "vertices", v)
+        object.__setattr__(self, "faces", f)
+
+    def bounds(self) -> tuple[Vec3, Vec3]:
+        lo = tuple(min(q[i] for q in self.vertices) for i in range(3))
+        hi = tuple(max(q[i] for q in self.vertices) for i in range(3))
+        return lo, hi  # type: ignore[return-value]
+
+
+@dataclass(frozen=True)
 class Port:
     """A lumped port across a feed gap from ``start`` to ``stop``.
 
@@ -272,8 +306,8 @@ class Port:
         return tuple(0.5 * (a + b) for a, b in zip(self.start, self.stop))  # type: ignore[return-value]
 
 
-Primitive = Box | Cylinder | Wire | Polygon
-PRIMITIVE_KINDS = {"box": Box, "cylinder": Cylinder, "wire": Wire, "polygon": Polygon}
+Primitive = Box | Cylinder | Wire | Polygon | Polyhedron
+PRIMITIVE_KINDS = {"box": Box, "cylinder": Cylinder, "wire": Wire, "polygon": Polygon, "polyhedron": Polyhedron}
 
 
 def primitive_to_dict(p: Primitive | Port) -> dict:
@@ -297,6 +331,7 @@ def primitive_from_dict(d: dict) -> Primitive | Port:
         cls = PRIMITIVE_KINDS[kind]
     except KeyError:
         raise ValueError(f"unknown primitive kind {kind!r}; allowed: {sorted(PRIMITIVE_KINDS)} or 'port'") from None
-    if "points" in d:
-        d["points"] = tuple(tuple(p) for p in d["points"])
+    for k in ("points", "vertices", "faces"):
+        if k in d:
+            d[k] = tuple(tuple(p) for p in d[k])
     return cls(**d)

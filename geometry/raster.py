@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from .model import SceneModel
-from .primitives import Box, Cylinder, Polygon, Primitive, Wire, axis_index
+from .primitives import Box, Cylinder, Polygon, Polyhedron, Primitive, Wire, axis_index
 
 
 def points_in_polygon(xy, poly) -> np.ndarray:
@@ -22,6 +22,34 @@ def points_in_polygon(xy, poly) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         xint = x0 + (y - y0) * (x1 - x0) / (y1 - y0)
     return (np.sum(crosses & (x < xint), axis=1) % 2) == 1
+
+
+#: ray direction for the inside test of a polyhedron: oblique, so that rays from grid points rarely graze
+#: an edge or a vertex of faces aligned with the axes
+_RAY = np.array([1.0, 0.2371, 0.1289]) / np.linalg.norm([1.0, 0.2371, 0.1289])
+
+
+def points_in_polyhedron(points, vertices, faces) -> np.ndarray:
+    """Even-odd rule along one ray (Moller-Trumbore intersection): which points, shape (n, 3), lie inside a
+    closed triangle mesh (vertices shape (k, 3), faces shape (m, 3)); returns (n,) bool."""
+    p = np.atleast_2d(np.asarray(points, dtype=float))
+    tri = np.asarray(vertices, dtype=float)[np.asarray(faces)]
+    v0, e1, e2 = tri[:, 0], tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]
+    h = np.cross(_RAY, e2)
+    a = np.einsum("ij,ij->i", e1, h)
+    ok = np.abs(a) > 1e-30
+    v0, e1, e2, h, a = v0[ok], e1[ok], e2[ok], h[ok], a[ok]
+    out = np.zeros(len(p), dtype=bool)
+    chunk = max(1, 1_000_000 // max(1, len(a)))
+    for k in range(0, len(p), chunk):
+        s = p[k:k + chunk, None, :] - v0[None]
+        u = np.einsum("nmj,mj->nm", s, h) / a
+        q = np.cross(s, e1[None])
+        v = (q @ _RAY) / a
+        t = np.einsum("nmj,mj->nm", q, e2) / a
+        hit = (u >= 0) & (v >= 0) & (u + v <= 1) & (t > 0)
+        out[k:k + chunk] = (hit.sum(axis=1) % 2) == 1
+    return out
 
 
 def _segment_distance(p, a, b) -> np.ndarray:
@@ -69,6 +97,13 @@ def inside(prim: Primitive, points, tol: float = 0.0) -> np.ndarray:
         for k in range(0, len(idx), chunk):
             sel = idx[k:k + chunk]
             out[sel] = points_in_polygon(uv[sel], P)
+        return out
+    if isinstance(prim, Polyhedron):
+        lo, hi = prim.bounds()
+        near = np.all((p >= np.asarray(lo) - 1e-15) & (p <= np.asarray(hi) + 1e-15), axis=1)
+        out = np.zeros(len(p), dtype=bool)
+        idx = np.flatnonzero(near)
+        out[idx] = points_in_polyhedron(p[idx], prim.vertices, prim.faces)
         return out
     raise TypeError(f"unknown primitive {type(prim).__name__}")
 

@@ -121,6 +121,22 @@ LOOP_PROPS = {
 BOARD_LAYER_PROPS = {"thickness_mm": _len("Layer thickness"), **DIELECTRIC_PROPS}
 
 
+CAD_PROPS = {
+    "type": _typed("cad", "A conductor read from a closed triangle mesh (STL file)."),
+    "file": _str("Path of the STL file, relative to the study file's folder (or absolute)."),
+    "unit": _str("Length of one unit in the file.", "mm", ["m", "mm", "um"]),
+    "feed_start_mm": _vec("One end of the feed gap in the part's own coordinates (mm, before rotation and "
+                          "offset).", 3),
+    "feed_stop_mm": _vec("Other end of the feed gap in the part's own coordinates (mm).", 3),
+    "feed_axis": _str("Direction of the port voltage in the scene, after rotation.", None, AXIS3),
+    "offset_mm": _vec("Shift (x, y, z) of the part after rotation (mm).", 3, [0.0, 0.0, 0.0]),
+    "rotation_deg": _vec("Rotation about x, then y, then z (degrees, about the file's origin).", 3, [0.0, 0.0, 0.0]),
+    "conductor": CONDUCTOR,
+    "sha256": _str("Content hash of the file; filled in when the study is expanded (give it to pin a version)."),
+}
+CAD_REQUIRED = ["type", "file", "feed_start_mm", "feed_stop_mm", "feed_axis"]
+
+
 def _board_props(kind: str, desc: str) -> dict:
     return {
         "type": _typed(kind, desc),
@@ -300,6 +316,10 @@ def scene_schema() -> dict:
                                   ["type", "length_mm", "feed_gap_mm", "depth_mm"])
     defs["implant_loop"] = _obj("Implanted loop.", {**LOOP_PROPS, **IMPLANT_PLACE},
                                 ["type", "trace_width_mm", "feed_gap_mm", "depth_mm"])
+    defs["external_cad"] = _obj("External antenna read from an STL file.", {**CAD_PROPS, **EXTERNAL_PLACE},
+                                CAD_REQUIRED)
+    defs["implant_cad"] = _obj("Implant antenna read from an STL file.", {**CAD_PROPS, **IMPLANT_PLACE},
+                               CAD_REQUIRED + ["depth_mm"])
     board_req = ["type", "board_size_mm", "substrate", "feed_distance_mm", "depth_mm"]
     defs["implant_inverted_f"] = _obj("Implanted planar inverted-F antenna.", {**INVERTED_F_PROPS, **IMPLANT_PLACE},
                                       board_req + ["patch_length_mm", "patch_width_mm"])
@@ -327,11 +347,12 @@ def scene_schema() -> dict:
                                  "checks).", {k: k for k in ("layered_slab", "layered_cylinder", "liquid_box",
                                                              "none")}),
             "external": _dispatch("The external antenna (port 1).", {"dipole": "external_dipole",
-                                                                    "loop": "external_loop"}),
+                                                                    "loop": "external_loop",
+                                                                    "cad": "external_cad"}),
             "implant": _dispatch("The implant antenna (port 2); leave out for a scene without implant.",
                                  {"dipole": "implant_dipole", "loop": "implant_loop",
                                   "inverted_f": "implant_inverted_f", "meander": "implant_meander",
-                                  "spiral": "implant_spiral"}),
+                                  "spiral": "implant_spiral", "cad": "implant_cad"}),
             "concentrators": {"description": "Passive metal parts in tissue, placed relative to an anchor.",
                               "type": "array", "default": [],
                               "items": _dispatch("One concentrator.",

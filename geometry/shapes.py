@@ -8,7 +8,7 @@ import dataclasses
 
 import numpy as np
 
-from .primitives import AXES, Box, Cylinder, Polygon, Port, Primitive, Wire, axis_index
+from .primitives import AXES, Box, Cylinder, Polygon, Polyhedron, Port, Primitive, Wire, axis_index
 
 #: for a planar element with normal n: (u axis, v axis). The feed gap sits at the v-minimum side
 #: and runs along u; for normals x and y, v is z, so the feed is at the bottom (nearest the body).
@@ -76,6 +76,8 @@ def translate(p: Primitive | Port, offset) -> Primitive | Port:
         a, b = (n + 1) % 3, (n + 2) % 3
         return dataclasses.replace(p, elevation=float(p.elevation + o[n]),
                                    points=tuple((float(u + o[a]), float(v + o[b])) for u, v in p.points))
+    if isinstance(p, Polyhedron):
+        return dataclasses.replace(p, vertices=tuple(tuple(float(v) for v in q) for q in np.add(p.vertices, o)))
     raise TypeError(f"cannot move {type(p).__name__}")
 
 
@@ -115,6 +117,11 @@ def sample_points(p: Primitive, step: float) -> tuple[np.ndarray, float]:
     if isinstance(p, Polygon):
         v = polygon_vertices(p)
         return _densify(np.concatenate([v, v[:1]]), step), 0.0
+    if isinstance(p, Polyhedron):
+        v = np.asarray(p.vertices)
+        f = np.asarray(p.faces)
+        edges = np.unique(np.sort(np.concatenate([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]]), axis=1), axis=0)
+        return np.concatenate([v] + [_densify(v[e], step)[1:-1] for e in edges]), 0.0
     if isinstance(p, Box):
         lo, hi = p.bounds()
         g = [np.linspace(lo[i], hi[i], max(2, int(np.ceil((hi[i] - lo[i]) / step)) + 1)) for i in range(3)]

@@ -20,6 +20,7 @@ number of cells the arrays hold.
 from __future__ import annotations
 
 import math
+import os
 import shutil
 from pathlib import Path
 
@@ -102,7 +103,7 @@ def disk_problem(rows: list[dict], budget_GB: float, source: str) -> str | None:
 
     The need is what the cases to run keep plus the largest scratch of one of them.
     """
-    todo = [r for r in rows if r.get("state") in ("to run", "changed")]
+    todo = [r for r in rows if r.get("state") in ("to solve", "to finish")]  # an upper bound for "to finish"
     kept = [r.get("disk_B", float("nan")) for r in todo]
     kept = [v for v in kept if v == v]
     scratch = [v for v in (r.get("scratch_B", float("nan")) for r in todo) if v == v]
@@ -112,3 +113,58 @@ def disk_problem(rows: list[dict], budget_GB: float, source: str) -> str | None:
     return (f"estimated disk use {need / 1e9:.3g} GB for {len(todo)} cases (results kept "
             f"{sum(kept) / 1e9:.3g} GB + solver scratch {max(scratch, default=0.0) / 1e9:.3g} GB) is over the "
             f"budget of {budget_GB:.3g} GB ({source})")
+
+
+# -- the budget of the cases to run (plan and run refuse over it) ------------------------------------------
+def fmt_bytes(b: float) -> str:
+    if b != b:
+        return "-"
+    for unit, f in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if b >= f:
+            return f"{b / f:.1f} {unit}"
+    return f"{b:.0f} B"
+
+
+def fmt_cpu(s: float) -> str:
+    from .pipeline import format_duration
+
+    return "-" if s != s else format_duration(s)
+
+
+def study_cpu_budget_hours(study, given: float | None) -> float:
+    """The CPU-time budget: the command line's, else the study file's ``budget.max_cpu_hours``, else 24 h."""
+    if given is not None:
+        return float(given)
+    try:
+        v = study.budget.get("max_cpu_hours")
+    except (AttributeError, KeyError, TypeError):
+        v = None
+    return float(v) if v else 24.0
+
+
+def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float,
+                    disk: tuple[float, str] | None = None) -> list[str]:
+    """Why the cases to run are over budget (empty: within). ``disk``: ``(budget GB, where it comes from)``."""
+    todo = [r for r in rows if r["state"] == "to solve"]  # a finish step costs no FDTD time
+    cpu = sum(r.get("cpu_s", 0.0) for r in todo if r.get("cpu_s", 0.0) == r.get("cpu_s", 0.0))
+    out = []
+    if cpu > max_cpu_hours * 3600.0:
+        out.append(f"estimated CPU time {cpu / 3600.0:.3g} h for {len(todo)} cases is over the budget of "
+                   f"{max_cpu_hours:g} h (--max-cpu-hours)")
+    big = [r for r in todo if r.get("memory_B", 0.0) == r.get("memory_B", 0.0) and r.get("memory_B", 0.0) > max_memory_GB * 1e9]
+    if big:
+        worst = max(big, key=lambda r: r["memory_B"])
+        out.append(f"{len(big)} cases need more memory than {max_memory_GB:g} GB (--max-memory-GB), the largest "
+                   f"{fmt_bytes(worst['memory_B'])} ({worst['case_id']}, {worst['cells']:.0f} cells)")
+    if disk is not None:
+        p = disk_problem(rows, *disk)
+        if p:
+            out.append(p)
+    return out
+
+
+def machine_memory_GB() -> float:
+    try:
+        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 1e9
+    except (ValueError, OSError, AttributeError):
+        return 8.0

@@ -1,12 +1,13 @@
 """The ``bodysweep`` command line.
 
 bodysweep check   STUDY        schema, geometry and mesh checks, number of cases; writes nothing
-bodysweep plan    STUDY        per case: done / to run / changed / failed, with cost estimates
+bodysweep plan    STUDY        per case: done / to solve / to finish / failed, with cost estimates
 bodysweep run     STUDY        prepare case folders and run the pipeline (Snakemake) with progress
 bodysweep collect STUDY        merge case results into tables
 bodysweep preview STUDY CASE   the three-plane preview PNG of one case
 bodysweep report  STUDY        plots and report.md from the tables
-bodysweep verify  STUDY        integrity of case folders and tables
+bodysweep verify  STUDY        integrity of case folders, the study's solves in the store, and tables
+bodysweep solves                 list the shared store of solves; --remove-unused removes those no study uses
 
 Exit codes: 0 success; 2 the study file (or a case's geometry) is not usable, nothing written;
 3 some cases failed (run) or integrity problems (verify); 4 refused: the estimated cost is over the
@@ -20,6 +21,8 @@ import argparse
 import os
 import sys
 from pathlib import Path
+
+from .budget import budget_problems, fmt_bytes, fmt_cpu, machine_memory_GB, study_cpu_budget_hours
 
 EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET, EXIT_BUSY, EXIT_INTERRUPTED = 0, 1, 2, 3, 4, 5, 6
 
@@ -113,23 +116,8 @@ def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
 
 
 # -- cost ------------------------------------------------------------------------------------------------
-def _fmt_bytes(b: float) -> str:
-    if b != b:
-        return "-"
-    for unit, f in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
-        if b >= f:
-            return f"{b / f:.1f} {unit}"
-    return f"{b:.0f} B"
-
-
-def _fmt_cpu(s: float) -> str:
-    from .pipeline import format_duration
-
-    return "-" if s != s else format_duration(s)
-
-
-def plan_rows(layout, entries, dicts, previous) -> list[dict]:
-    """One row per case: state and, for cases still to run, the mesh and cost estimate.
+def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
+    """One row per case: state and, for cases still to solve, the mesh and cost estimate.
 
     Estimates (:func:`bodysweep.workflow.estimate.case_estimate`) are remembered in the study folder
     (:mod:`bodysweep.workflow.cost_cache`) and computed in worker processes when many are missing; call
@@ -139,14 +127,14 @@ def plan_rows(layout, entries, dicts, previous) -> list[dict]:
     from .estimate import case_estimate
     from .pipeline import case_states
 
-    states = case_states(layout, entries, previous)
-    need = [d for d, (state, _) in zip(dicts, states) if state != "done"]
+    states = case_states(layout, entries, previous, store)
+    need = [d for d, (state, _) in zip(dicts, states) if state == "to solve"]
     known = cost_cache.load(layout.root)
     found = cost_cache.estimates(need, known, case_estimate)
     rows = []
     for e, d, (state, why) in zip(entries, dicts, states):
         row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
-        if state != "done":
+        if state == "to solve":
             est = found[d["case_id"]]
             if isinstance(est, Exception):  # a case the mesher refuses shows up as such, not as a crash
                 row["_refused"] = " ".join(str(est).split())
@@ -166,40 +154,6 @@ def remember_costs(layout, rows: list[dict]) -> None:
     cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
-def study_cpu_budget_hours(study, given: float | None) -> float:
-    """The CPU-time budget: the command line's, else the study file's ``budget.max_cpu_hours``, else 24 h."""
-    if given is not None:
-        return float(given)
-    try:
-        v = study.budget.get("max_cpu_hours")
-    except (AttributeError, KeyError, TypeError):
-        v = None
-    return float(v) if v else 24.0
-
-
-def budget_problems(rows: list[dict], max_cpu_hours: float, max_memory_GB: float,
-                    disk: tuple[float, str] | None = None) -> list[str]:
-    """Why the cases to run are over budget (empty: within). ``disk``: ``(budget GB, where it comes from)``."""
-    todo = [r for r in rows if r["state"] in ("to run", "changed")]
-    cpu = sum(r.get("cpu_s", 0.0) for r in todo if r.get("cpu_s", 0.0) == r.get("cpu_s", 0.0))
-    out = []
-    if cpu > max_cpu_hours * 3600.0:
-        out.append(f"estimated CPU time {cpu / 3600.0:.3g} h for {len(todo)} cases is over the budget of "
-                   f"{max_cpu_hours:g} h (--max-cpu-hours)")
-    big = [r for r in todo if r.get("memory_B", 0.0) == r.get("memory_B", 0.0) and r.get("memory_B", 0.0) > max_memory_GB * 1e9]
-    if big:
-        worst = max(big, key=lambda r: r["memory_B"])
-        out.append(f"{len(big)} cases need more memory than {max_memory_GB:g} GB (--max-memory-GB), the largest "
-                   f"{_fmt_bytes(worst['memory_B'])} ({worst['case_id']}, {worst['cells']:.0f} cells)")
-    if disk is not None:
-        from .budget import disk_problem
-
-        p = disk_problem(rows, *disk)
-        if p:
-            out.append(p)
-    return out
-
-
 def _refuse_over_budget(problems: list[str]) -> int:
     """One error line naming every figure over its budget; exit code 4."""
     _err("over budget: " + "; ".join(problems) + "; give --accept-cost to run anyway, or raise the budget")
@@ -211,13 +165,6 @@ def _study_budget_problems(study, rows, a) -> list[str]:
 
     return budget_problems(rows, study_cpu_budget_hours(study, a.max_cpu_hours), a.max_memory_GB,
                            disk_budget_GB(study, a.max_disk_GB, a.results_dir))
-
-
-def _machine_memory_GB() -> float:
-    try:
-        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 1e9
-    except (ValueError, OSError, AttributeError):
-        return 8.0
 
 
 # -- subcommands -----------------------------------------------------------------------------------------
@@ -249,30 +196,38 @@ def cmd_check(a) -> int:
     return EXIT_OK
 
 
+def _store(a) -> Path:
+    from .store import store_root
+
+    return store_root(a.results_dir, getattr(a, "solve_store", None))
+
+
 def cmd_plan(a) -> int:
     from .pipeline import previous_plan
 
     study, layout, entries, dicts = _expand(a.study, a.results_dir)
-    rows = plan_rows(layout, entries, dicts, previous_plan(layout))
+    rows = plan_rows(layout, entries, dicts, previous_plan(layout), _store(a))
     w = max([len(r["label"]) for r in rows] + [5])
-    print(f"{'case_id':<14} {'label':<{w}} {'state':<8} {'cells':>10} {'timesteps':>10} {'memory':>9} {'CPU time':>10}  note")
+    print(f"{'case_id':<14} {'label':<{w}} {'state':<9} {'cells':>10} {'timesteps':>10} {'memory':>9} {'CPU time':>10}  note")
     for r in rows:
-        has = r["state"] != "done"
-        print(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<8} "
+        has = r["state"] == "to solve"
+        print(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<9} "
               f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
               f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
-              f"{(_fmt_bytes(r['memory_B']) if has else '-'):>9} {(_fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
-    counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to run", "changed", "failed")}
-    todo = [r for r in rows if r["state"] in ("to run", "changed")]
+              f"{(fmt_bytes(r['memory_B']) if has else '-'):>9} {(fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
+    counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to solve", "to finish", "failed")}
+    changed = sum(r["note"].startswith("changed") for r in rows)
+    todo = [r for r in rows if r["state"] == "to solve"]
     cpus = [r["cpu_s"] for r in todo if r["cpu_s"] == r["cpu_s"]]
-    cpu = sum(cpus) if cpus else float("nan")
+    cpu = sum(cpus) if cpus else (0.0 if not todo else float("nan"))
     mem = max([r["memory_B"] for r in todo if r["memory_B"] == r["memory_B"]] or [float("nan")])
     cells = sum(r["cells"] for r in todo if r["cells"] == r["cells"])
     disks = [r.get("disk_B", float("nan")) for r in todo]
     disk = sum(v for v in disks if v == v) if any(v == v for v in disks) else float("nan")
     print(f"total: {len(rows)} cases: " + ", ".join(f"{n} {s}" for s, n in counts.items())
-          + f"; to run: {cells:.0f} cells, CPU time {_fmt_cpu(cpu)}, largest memory {_fmt_bytes(mem)}, "
-          + f"disk {_fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
+          + (f" ({changed} changed since the last plan)" if changed else "")
+          + f"; to solve: {cells:.0f} cells, CPU time {fmt_cpu(cpu)}, largest memory {fmt_bytes(mem)}, "
+          + f"disk {fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
     from .study.uncertainty import budget_note
 
     note = budget_note(study.raw, entries, layout)
@@ -292,7 +247,7 @@ def cmd_run(a) -> int:
     _check_geometry(dicts)
     rows: list[dict] = []
     if not a.accept_cost:
-        rows = plan_rows(layout, entries, dicts, previous_plan(layout))
+        rows = plan_rows(layout, entries, dicts, previous_plan(layout), _store(a))
         for d, r in zip(dicts, rows):  # a case the solver would refuse stops the run before any job
             if r.get("_refused"):
                 _refuse_mesh(d, r["_refused"])
@@ -335,29 +290,32 @@ def _run_locked(a, lock, log: Path) -> int:
     from .pipeline import (mark_unfinished, prepare, reset_failed, run_snakemake, snakemake_args, case_states)
     from .runlock import clear_interrupted
 
-    cleared = clear_interrupted(lock.layout, ".")
+    cleared = clear_interrupted(lock.layout, ".", _store(a))
     if cleared["snakemake_locks"] or cleared["temporaries"]:
         print(f"an earlier run of this study was interrupted: removed {cleared['snakemake_locks']} stale "
               f"Snakemake lock files and {cleared['temporaries']} leftover temporary files")
     from .interrupt import settle_incomplete
 
-    settled = settle_incomplete(lock.layout, ".")
+    settled = settle_incomplete(lock.layout, ".", (_store(a),))
     if settled:
         print(f"kept {len(settled)} outputs that an interrupted run finished (not redone)")
-    prep = prepare(a.study, a.results_dir)
+    prep = prepare(a.study, a.results_dir, _store(a))
     if a.retry_failed:
-        reset = reset_failed(prep.layout, prep.entries)
+        reset = reset_failed(prep.layout, prep.entries, prep.store)
         if reset:
             print(f"retrying {len(reset)} failed cases")
-    states = case_states(prep.layout, prep.entries)
+    states = case_states(prep.layout, prep.entries, store=prep.store)
     n_failed_before = sum(s == "failed" for s, _ in states)
     if n_failed_before:
         print(f"{n_failed_before} cases failed in an earlier run and are kept as failed (--retry-failed reruns them)")
+    n_solve, n_finish = (sum(s == k for s, _ in states) for k in ("to solve", "to finish"))
+    if n_finish:
+        print(f"{n_solve} cases to solve, {n_finish} to finish from solves already in the store {prep.store}")
     from .cluster import site_resource_args
     from .pipeline import resolve_profile
 
     site = site_resource_args(resolve_profile(a.profile), a.partition, a.account)
-    args = snakemake_args(a.study, results_dir=a.results_dir, workdir=".", cores=a.cores, jobs=a.jobs,
+    args = snakemake_args(a.study, results_dir=a.results_dir, store=prep.store, workdir=".", cores=a.cores, jobs=a.jobs,
                           threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
     lock_fds = (lock.fd,)  # Snakemake holds the study lock too (runlock module docstring)
     from .interrupt import RunInterrupted, profile_submits
@@ -373,7 +331,7 @@ def _run_locked(a, lock, log: Path) -> int:
              f"there uses files of this study; see {log}")
         return EXIT_BUSY
     if rc != 0:
-        marked = mark_unfinished(prep.layout, prep.entries)
+        marked = mark_unfinished(prep.layout, prep.entries, prep.store)
         if marked:
             print(f"{len(marked)} cases ended without a result; recorded as failed. Collecting the rest.")
             try:
@@ -395,7 +353,7 @@ def _run_locked(a, lock, log: Path) -> int:
     if rc != 0:
         _err(f"the pipeline failed (snakemake exit {rc}); see {log}")
         return EXIT_ERROR
-    states = case_states(prep.layout, prep.entries)
+    states = case_states(prep.layout, prep.entries, store=prep.store)
     failed = [(e, why) for e, (s, why) in zip(prep.entries, states) if s == "failed"]
     print(f"done: {len(prep.entries) - len(failed)} of {len(prep.entries)} cases have results")
     print(f"tables: {prep.layout.tables_dir}/ (summary, sparams, sar, uncertainty as .parquet and .csv)")
@@ -415,7 +373,7 @@ def _interrupted(a, exc, lock, prep, log: Path) -> int:
 
     for line in (exc.report.lines() if exc.report else [f"interrupted ({exc})"]):
         print(line)
-    print(after_stop(lock.layout, prep.entries, ".") + f"; `bodysweep run {a.study}` continues with the rest "
+    print(after_stop(lock.layout, prep.entries, ".", prep.store) + f"; `bodysweep run {a.study}` continues with the rest "
           f"(log: {log})")
     _err(f"interrupted by {exc.report.signal_name if exc.report else exc}; stopped the run")
     return EXIT_INTERRUPTED
@@ -475,7 +433,8 @@ def cmd_preview(a) -> int:
         raise StudyUnusable(f"case {a.case!r} is not in study {study.name!r}: give a case id, a label or an "
                             f"index 0..{len(dicts) - 1} (see `bodysweep plan`)")
     case = pick[0]
-    out = Path(a.output) if a.output else layout.case_dir(case["case_id"]) / "preview.png"
+    stored = _store(a) / case["solve_id"] / "preview.png"  # the scene step's preview, once the case ran
+    out = Path(a.output) if a.output else (stored if stored.exists() else layout.case_dir(case["case_id"]) / "preview.png")
     if out.exists() and not a.output:
         print(out)
         return EXIT_OK
@@ -497,13 +456,41 @@ def cmd_verify(a) -> int:
     from .verify import verify_study
 
     layout = _layout_of(a)
-    problems, n = verify_study(layout)
+    problems, n = verify_study(layout, _store(a))
     for p in problems[:200]:
         print(f"  {p}")
     if problems:
-        print(f"verify: {len(problems)} problems in {n} cases of {layout.root}")
+        print(f"verify: {len(problems)} problems in {n} cases of {layout.root} and their solves in {_store(a)}")
         return EXIT_FAILED
-    print(f"verify: {n} cases and the tables of {layout.root} are consistent")
+    print(f"verify: {n} cases, their solves in {_store(a)} and the tables of {layout.root} are consistent")
+    return EXIT_OK
+
+
+def cmd_solves(a) -> int:
+    """List the store's solves with their size and the studies using them; optionally remove unused ones."""
+    from . import store as solves
+
+    root = _store(a)
+    ids = solves.solve_ids(root)
+    refs, stale = solves.references(root)
+    unused = [i for i in ids if i not in refs]
+    total = 0
+    for i in ids:
+        size = solves.folder_bytes(root / i)
+        total += size
+        users = refs.get(i, [])
+        print(f"{i}  {fmt_bytes(size):>9}  " + (f"used by {len(users)} studies: {', '.join(Path(u).name for u in users[:4])}"
+                                                  if users else "unused"))
+    print(f"store {root}: {len(ids)} solves ({fmt_bytes(total)}), {len(unused)} used by no study")
+    if not a.remove_unused:
+        if unused:
+            print("give --remove-unused to remove the unused ones")
+        return EXIT_OK
+    removed = [i for i in unused if solves.remove_solve(root, i)]
+    for p in stale:
+        p.unlink(missing_ok=True)
+    busy = len(unused) - len(removed)
+    print(f"removed {len(removed)} unused solves" + (f"; {busy} kept because a job holds them" if busy else ""))
     return EXIT_OK
 
 
@@ -522,14 +509,19 @@ def build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=help_, description=help_)
         p.add_argument("study", help="the study file (YAML)")
         p.add_argument("--results-dir", default="results", help="folder holding results/<study>/ (default: results)")
+        store_option(p)
         p.set_defaults(func=func)
         return p
+
+    def store_option(p):
+        p.add_argument("--solve-store", default=None, metavar="FOLDER",
+                       help="the shared store of solves (default: $BODYSWEEP_SOLVE_STORE, else <results-dir>/_solves)")
 
     def budget(p):
         p.add_argument("--max-cpu-hours", type=float, default=None,
                        help="refuse when the estimated CPU time of the cases to run exceeds this "
                             "(default: the study's budget.max_cpu_hours, else 24 h)")
-        p.add_argument("--max-memory-GB", type=float, default=round(0.8 * _machine_memory_GB(), 1),
+        p.add_argument("--max-memory-GB", type=float, default=round(0.8 * machine_memory_GB(), 1),
                        help="refuse when a case needs more memory than this (default 80%% of this machine's)")
         p.add_argument("--max-disk-GB", type=float, default=None,
                        help="refuse when the estimated disk use of the cases to run exceeds this (default: the "
@@ -539,7 +531,7 @@ def build_parser() -> argparse.ArgumentParser:
     add("check", "check the study file (schema, geometry and mesh of every case, as the solver would build "
                  "them) and count its cases; writes nothing",
         cmd_check)
-    budget(add("plan", "list each case as done / to run / changed / failed with cell count, timesteps, memory "
+    budget(add("plan", "list each case as done / to solve / to finish / failed with cell count, timesteps, memory "
                        "and CPU-time estimates, and the total", cmd_plan))
     p = add("run", "prepare the case folders and run the pipeline (only what is not done yet)", cmd_run)
     p.add_argument("--cores", type=int, default=None, help="cores Snakemake may use in total (profile default: 2)")
@@ -563,6 +555,14 @@ def build_parser() -> argparse.ArgumentParser:
     add("report", "write the plots and report.md of a study from its tables", cmd_report)
     add("verify", "check that every case's files are present, case ids match case.json, tables match the cases",
         cmd_verify)
+    p = sub.add_parser("solves", help="list the shared store of solves (size, studies using each); "
+                       "--remove-unused removes the solves no study refers to",
+                       description="List the shared store of solves; --remove-unused removes the solves that no "
+                       "study's current plan refers to (solves a running job holds are kept).")
+    p.add_argument("--results-dir", default="results", help="folder holding the default store (default: results)")
+    store_option(p)
+    p.add_argument("--remove-unused", action="store_true", help="remove the solves no study refers to")
+    p.set_defaults(func=cmd_solves)
     return ap
 
 

@@ -158,7 +158,9 @@ def _case_cost_from_folder(case_dir: Path) -> tuple[CostEstimate, int]:
     openEMS import). Results are cached per ``case.json`` modification time and size: Snakemake asks for
     a job's resources several times.
     """
-    case_file = case_dir / "case.json"
+    case_file = case_dir / "solve.json"  # a solve folder of the store (its solver settings lack threads)
+    if not case_file.exists():
+        case_file = case_dir / "case.json"
     try:
         st = case_file.stat()
     except FileNotFoundError:

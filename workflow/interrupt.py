@@ -278,12 +278,15 @@ def profile_submits(profile_dir: Path | None) -> bool:
     return str((conf or {}).get("executor", "local")) not in ("local", "dryrun", "touch")
 
 
-def after_stop(layout: StudyLayout, entries: list[dict], workdir: str | Path = ".") -> str:
-    """Leave a stopped study clean (call holding its run lock); one line saying what is finished and kept."""
-    settle_incomplete(layout, workdir)  # finished jobs whose end Snakemake did not register are kept
-    clear_interrupted(layout, workdir)
+def after_stop(layout: StudyLayout, entries: list[dict], workdir: str | Path = ".", store: Path | None = None) -> str:
+    """Leave a stopped study clean (call holding its run lock); one line saying what is finished and kept.
+
+    ``store``: the shared store of solves the study's solve jobs write in (:mod:`.store`)."""
+    # finished jobs whose end Snakemake did not register are kept
+    settle_incomplete(layout, workdir, (store,) if store is not None else ())
+    clear_interrupted(layout, workdir, store)
     done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in entries)
-    solved = sum((layout.case_dir(e["case_id"]) / f"excite_{p}" / "status.json").exists()
+    solved = sum((layout.case_dir(e["case_id"]) / "solve" / f"excite_{p}" / "status.json").exists()
                  for e in entries for p in e["ports"])
     n_solves = sum(len(e["ports"]) for e in entries)
     return f"kept: {done} of {len(entries)} cases finished, {solved} of {n_solves} solver runs done"

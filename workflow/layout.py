@@ -6,6 +6,9 @@
     ``tables/``            merged tables (:mod:`bodysweep.workflow.collect`)
     ``report/``            plots and ``report.md`` (:mod:`bodysweep.workflow.report`)
     ``logs/``              Snakemake logs of ``bodysweep run``
+
+The solves themselves (scene, port signals, raw fields) live in the shared store of solves
+(:mod:`bodysweep.workflow.store`), by default ``<results_dir>/_solves/<solve_id>/``.
 """
 from __future__ import annotations
 
@@ -15,9 +18,11 @@ from pathlib import Path
 
 from .atomic import json_text, write_if_changed
 
-PLAN_VERSION = 1
+PLAN_VERSION = 2  # 2: each entry carries its solve_id
 #: the tables the collect step writes (:mod:`bodysweep.workflow.collect`), each as Parquet and CSV
 TABLE_NAMES = ("summary", "sparams", "sar", "uncertainty")
+#: folder of the shared store of solves inside the results folder (the default store)
+DEFAULT_STORE_NAME = "_solves"
 
 
 @dataclass(frozen=True)
@@ -30,6 +35,8 @@ class StudyLayout:
     def of(cls, study_name: str, results_dir: str | Path = "results") -> "StudyLayout":
         if not study_name or "/" in study_name or study_name in (".", ".."):
             raise ValueError(f"study name {study_name!r} cannot be a folder name; use letters, digits, - and _")
+        if study_name == DEFAULT_STORE_NAME:
+            raise ValueError(f"study name {study_name!r} is the folder of the shared store of solves; choose another")
         return cls(Path(results_dir) / study_name)
 
     @property

@@ -2,9 +2,11 @@
 
 Rerun-only-what-changed rests on two things:
 
-1. **Identity-based folders.** A case's folder is named by its ``case_id``, a hash of the fully resolved
-   case (scene in SI, frequency, solver and SAR settings, builder/adapter/post versions). A change that
-   alters results gives a new id and so a new, empty folder; an unchanged case keeps its folder.
+1. **Identity-based folders.** A case's folder is named by its ``case_id`` (the finish identity), its
+   solve's folder in the shared store (:mod:`.store`) by its ``solve_id`` (the solve identity; see
+   DEVELOPERS.md, Identity). A change of what decides the fields gives a new solve id and a new case id;
+   a change of post-processing settings only a new case id, whose finish step reads the stored solve;
+   an unchanged case keeps both folders, and another study with the same solve finds it in the store.
 2. **Write-if-changed.** :func:`prepare` rewrites ``case.json`` (and ``plan.json``) only when the content
    differs, so modification times stay and Snakemake sees nothing new.
 
@@ -33,8 +35,10 @@ from .progress import running_progress
 
 #: statuses a finished case can carry in metrics.json that count as a result (not a failure)
 OK_STATUSES = ("ok", "warning")
-#: per-case states reported by :func:`case_states`
-STATES = ("done", "to run", "changed", "failed")
+#: per-case states reported by :func:`case_states`: "to finish" means the solve is in the store and only
+#: the (cheap) finish step remains; "to solve" needs an FDTD solve
+STATES = ("done", "to solve", "to finish", "failed")
+TO_SOLVE, TO_FINISH = "to solve", "to finish"
 
 #: the installed package's own Snakefile and profiles (package data, not the checkout; a regular
 #: install unpacks them as files, so their paths can be handed to Snakemake)
@@ -65,7 +69,7 @@ def parameter_key(parameters: dict) -> str:
 def plan_entry(case_dict: dict) -> dict:
     """The plan entry of one case (what collectors and the Snakefile need without opening case.json)."""
     ports = case_dict.get("excite_ports") or (case_dict.get("solver") or {}).get("excite_ports") or [1]
-    return {"case_id": case_dict["case_id"], "label": case_dict.get("label", ""),
+    return {"case_id": case_dict["case_id"], "solve_id": case_dict.get("solve_id"), "label": case_dict.get("label", ""),
             "parameters": case_dict.get("parameters", {}), "frequency_Hz": case_dict.get("frequency_Hz"),
             "ports": [int(p) for p in ports], **({"budget": case_dict["budget"]} if case_dict.get("budget") else {})}
 
@@ -79,6 +83,7 @@ class Prepared:
     entries: list[dict]
     previous: dict[str, str] = field(default_factory=dict)  # parameter key -> case id of the last plan
     written: int = 0  # case.json files (re)written
+    store: Path = Path("results") / "_solves"  # the shared store of solves (see .store)
 
 
 def expand_study(study_path: str | Path, results_dir: str | Path = "results") -> tuple[Any, StudyLayout, list[dict], list[dict]]:
@@ -114,9 +119,13 @@ def study_settings(study) -> dict:
             "parameter_paths": {n: p.path for n, p in study.parameters.items()}}
 
 
-def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prepared:
-    """Write every case folder's ``case.json`` and the study's ``plan.json``, each only if changed."""
+def prepare(study_path: str | Path, results_dir: str | Path = "results", store: str | Path | None = None) -> Prepared:
+    """Write every case folder's ``case.json``, the study's ``plan.json`` and each solve's ``solve.json``
+    in the store (:func:`.store.store_root` of ``results_dir`` and ``store``), each only if changed."""
+    from . import store as solves
+
     study, layout, entries, dicts = expand_study(study_path, results_dir)
+    root = solves.store_root(results_dir, store)
     ids = [e["case_id"] for e in entries]
     if len(set(ids)) != len(ids):
         dup = sorted({i for i in ids if ids.count(i) > 1})
@@ -133,11 +142,36 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results") -> Prep
     if budget is not None:
         settings["uncertainty"] = budget
     write_plan(layout, study.name, entries, settings)
-    return Prepared(study, layout, entries, previous, written)
+    solves.register_study(root, layout.root)  # after plan.json: the clean-up sees these solves referenced
+    done: set[str] = set()
+    for d in dicts:
+        if d["solve_id"] not in done:
+            done.add(d["solve_id"])
+            solves.write_solve_record(root, d)
+        link_solve(layout.case_dir(d["case_id"]), root / d["solve_id"])
+    return Prepared(study, layout, entries, previous, written, root)
+
+
+def link_solve(case_dir: Path, solve_dir: Path) -> None:
+    """A symbolic link ``<case folder>/solve`` to the case's solve folder in the store (for people browsing)."""
+    link = case_dir / "solve"
+    target = os.path.relpath(solve_dir.resolve(), case_dir.resolve())
+    try:
+        if os.readlink(link) == target:
+            return
+        link.unlink()
+    except FileNotFoundError:
+        pass
+    except OSError:  # not a link: leave whatever it is alone
+        return
+    try:
+        os.symlink(target, link)
+    except FileExistsError:  # a concurrent preparation made it
+        pass
 
 
 #: case.json fields that describe the case but are not part of its identity
-DESCRIPTIVE_KEYS = ("label", "study", "parameters", "budget")
+DESCRIPTIVE_KEYS = ("label", "study", "parameters", "solve_id", "budget")
 
 
 def _results_relevant(case: dict) -> dict:
@@ -184,40 +218,61 @@ def read_json(path: Path) -> dict | None:
         return None
 
 
-def case_state(layout: StudyLayout, entry: dict, previous: dict[str, str] | None = None) -> tuple[str, str]:
-    """``(state, reason)`` of a case: ``done``, ``failed``, ``changed`` or ``to run``.
+def _store_of(layout: StudyLayout, store: Path | None) -> Path:
+    """The store given, else the default one of the study's results folder (see :func:`.store.store_root`)."""
+    from .store import store_root
 
-    ``changed``: the same sweep point was in the last plan under another case id (its inputs changed) and
-    the new folder has no result yet. ``to run``: a new point, or one that never finished.
+    return Path(store) if store is not None else store_root(layout.root.parent)
+
+
+def case_state(layout: StudyLayout, entry: dict, previous: dict[str, str] | None = None,
+               store: Path | None = None) -> tuple[str, str]:
+    """``(state, note)`` of a case: ``done``, ``failed``, ``to finish`` or ``to solve``.
+
+    ``to finish``: the case's solve is in the store (``store``, default ``<results>/_solves``), only the
+    finish step is left. The note says ``changed (was <old id>)`` when the same sweep point was in the
+    last plan under another case id (its inputs changed) and the new folder has no result yet.
     """
+    from .store import solve_state
+
     m = read_json(layout.case_dir(entry["case_id"]) / "metrics.json")
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
             return "done", ""
         return "failed", str(m.get("reason", ""))
+    root = _store_of(layout, store)
+    sid = entry.get("solve_id")
+    state = TO_FINISH if sid and solve_state(Path(root) / sid, entry.get("ports", [1])) == "solved" else TO_SOLVE
     old = (previous or {}).get(parameter_key(entry.get("parameters", {})))
     if old is not None and old != entry["case_id"]:
-        return "changed", f"was {old}"
-    return "to run", ""
+        return state, f"changed (was {old})"
+    return state, ""
 
 
-def case_states(layout: StudyLayout, entries: list[dict], previous: dict[str, str] | None = None) -> list[tuple[str, str]]:
-    return [case_state(layout, e, previous) for e in entries]
+def case_states(layout: StudyLayout, entries: list[dict], previous: dict[str, str] | None = None,
+                store: Path | None = None) -> list[tuple[str, str]]:
+    return [case_state(layout, e, previous, store) for e in entries]
 
 
-def reset_failed(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
-    """Remove the outputs of failed cases (keeping ``case.json``) so that the next run redoes them.
+def reset_failed(layout: StudyLayout, entries: Iterable[dict], store: Path | None = None) -> list[str]:
+    """Remove the outputs of failed cases (keeping ``case.json`` and the ``solve`` link) and the failed
+    excitations of their solves in the store, so that the next run redoes them.
 
     Returns the ids of the cases reset.
     """
+    from .store import reset_failed_solve
+
+    root = _store_of(layout, store)
     reset = []
     for e in entries:
         d = layout.case_dir(e["case_id"])
         m = read_json(d / "metrics.json")
         if m is None or str(m.get("status")) in OK_STATUSES:
             continue
+        if e.get("solve_id"):
+            reset_failed_solve(Path(root) / e["solve_id"], e.get("ports", [1]))
         for p in d.iterdir():
-            if p.name == "case.json":
+            if p.name in ("case.json", "solve"):
                 continue
             if p.is_dir():
                 shutil.rmtree(p)
@@ -233,7 +288,7 @@ def failure_record(entry: dict, reason: str, stage: str) -> dict:
             "frequency_Hz": entry.get("frequency_Hz")}
 
 
-def mark_unfinished(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
+def mark_unfinished(layout: StudyLayout, entries: Iterable[dict], store: Path | None = None) -> list[str]:
     """After a run: write a failure record for each case whose jobs died without writing ``metrics.json``.
 
     The solve and finish steps record their own failures; this catches what they cannot (a crashed
@@ -245,6 +300,8 @@ def mark_unfinished(layout: StudyLayout, entries: Iterable[dict]) -> list[str]:
         if (d / "metrics.json").exists():
             continue
         logs = sorted(str(p.relative_to(d)) for p in (d / "logs").glob("*.log")) if (d / "logs").exists() else []
+        sd = _store_of(layout, store) / str(e.get("solve_id"))
+        logs += sorted(str(p) for p in (sd / "logs").glob("*.log")) if (sd / "logs").exists() else []
         if not logs:  # no job of this case started (the pipeline stopped before): nothing to record
             continue
         write_json(d / "metrics.json", failure_record(
@@ -269,7 +326,8 @@ def resolve_profile(name_or_path: str | None) -> Path | None:
     raise ValueError(f"profile {name_or_path!r} is neither a folder nor one of {known}")
 
 
-def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results", workdir: str | Path = ".",
+def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results", store: str | Path | None = None,
+                   workdir: str | Path = ".",
                    cores: int | None = None, jobs: int | None = None, threads_per_job: int | None = None,
                    profile: str | None = "local", targets: Iterable[str] = (), dry_run: bool = False,
                    extra: Iterable[str] = ()) -> list[str]:
@@ -277,6 +335,8 @@ def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results
     args = ["--snakefile", str(SNAKEFILE), "--directory", str(Path(workdir).resolve()),
             "--configfile", str(Path(study_path).resolve()),
             "--config", f"study_file={Path(study_path).resolve()}", f"results_dir={results_dir}"]
+    if store is not None:
+        args.append(f"solve_store={store}")
     if threads_per_job is not None:
         args.append(f"threads_per_job={int(threads_per_job)}")
     prof = resolve_profile(profile)
@@ -293,6 +353,9 @@ def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results
     # outputs of jobs killed with their run: every file is renamed into place complete, so an output
     # Snakemake still marks incomplete is whole but possibly stale; redo its job instead of stopping
     args += ["--rerun-incomplete"]
+    # no Snakemake directory lock: runs of one study exclude each other with the study's run lock, and
+    # runs of different studies needing the same solve meet at that solve folder's lock (.store)
+    args += ["--nolock"]
     if dry_run:
         args += ["--dry-run", "--quiet", "rules"]
     args += list(extra)
@@ -328,9 +391,9 @@ def parse_job_stats(text: str) -> dict[str, int]:
 
 
 def scheduled_jobs(study_path: str | Path, *, results_dir: str | Path = "results", workdir: str | Path = ".",
-                   targets: Iterable[str] = ()) -> dict[str, int]:
+                   targets: Iterable[str] = (), store: str | Path | None = None) -> dict[str, int]:
     """Jobs Snakemake would run for the study now, per rule (a dry run; ``{}`` when nothing is to be done)."""
-    cmd = snakemake_cmd(*snakemake_args(study_path, results_dir=results_dir, workdir=workdir, cores=1,
+    cmd = snakemake_cmd(*snakemake_args(study_path, results_dir=results_dir, store=store, workdir=workdir, cores=1,
                                         profile="local", targets=targets, dry_run=True))
     proc = subprocess.run(cmd, capture_output=True, text=True, cwd=str(workdir))
     text = proc.stdout + "\n" + proc.stderr
@@ -430,10 +493,29 @@ class SnakefileContext:
     layout: StudyLayout
     entries: tuple
     threads_per_job: int
+    store: Path = Path("results") / "_solves"
 
     @property
     def case_ids(self) -> list[str]:
         return [e["case_id"] for e in self.entries]
+
+    @property
+    def solve_ids(self) -> list[str]:
+        return sorted({e["solve_id"] for e in self.entries})
+
+    def solve_of(self, case_id: str) -> str:
+        d = self.__dict__.get("_solve_cache")
+        if d is None:
+            d = {e["case_id"]: e["solve_id"] for e in self.entries}
+            object.__setattr__(self, "_solve_cache", d)
+        return d[case_id]
+
+    def solve_ports(self, solve_id: str) -> list[int]:
+        d = self.__dict__.get("_solve_ports_cache")
+        if d is None:
+            d = {e["solve_id"]: e["ports"] for e in self.entries}
+            object.__setattr__(self, "_solve_ports_cache", d)
+        return d[solve_id]
 
     def ports(self, case_id: str) -> list[int]:
         return self._ports[case_id]
@@ -472,9 +554,12 @@ def snakefile_context(config: dict, *, main_process: bool, configfiles: list | N
         raise ValueError("no study given: run `snakemake --configfile studies/<study>.yaml` or `bodysweep run <study>.yaml`")
     results_dir = config.get("results_dir", "results")
     threads = int(config.get("threads_per_job") or default_threads_per_job())
+    from .store import store_root
+
+    store = store_root(results_dir, config.get("solve_store"))
     if main_process:
-        prep = prepare(study_file, results_dir)
-        return SnakefileContext(prep.layout, tuple(prep.entries), threads)
+        prep = prepare(study_file, results_dir, store)
+        return SnakefileContext(prep.layout, tuple(prep.entries), threads, store)
     study = load(study_file)
     layout = StudyLayout.of(study.name, results_dir)
-    return SnakefileContext(layout, tuple(read_plan(layout)["cases"]), threads)
+    return SnakefileContext(layout, tuple(read_plan(layout)["cases"]), threads, store)

@@ -1,6 +1,7 @@
 """Within-case progress of a running study: timesteps done, field energy decay so far, time left.
 
-While an excitation runs, the engine writes its console to ``excite_<p>/.engine_run/console.log`` (see
+While an excitation runs, the engine writes its console to ``excite_<p>/.engine_run/console.log`` of the
+case's solve folder (see
 :mod:`bodysweep.workflow.solver.run`); each progress line there reads
 
 ``[@  17s] Timestep:  420 || Speed: 10.2 MC/s (4.044e-02 s/TS) || Energy: ~1.75e-22 (- 0.76dB)``.
@@ -76,7 +77,8 @@ def running_progress(layout: StudyLayout, entries: list[dict]) -> list[str]:
         if (cdir / "metrics.json").exists():
             continue
         for p in e.get("ports", [1]):
-            xdir = cdir / f"excite_{p}"
+            # the excitation runs in the case's solve folder of the store (link ``solve``)
+            xdir = (cdir / "solve" if (cdir / "solve").is_dir() else cdir) / f"excite_{p}"
             if (xdir / "status.json").exists():
                 continue
             prog = last_progress(xdir / SCRATCH / "console.log")

@@ -262,10 +262,12 @@ def _inside(path: Path, root: Path) -> bool:
         return False
 
 
-def stale_snakemake_locks(layout: StudyLayout, workdir: str | Path = ".") -> list[Path]:
-    """Snakemake lock files in ``<workdir>/.snakemake/locks`` that list only files of this study."""
+def stale_snakemake_locks(layout: StudyLayout, workdir: str | Path = ".", store: Path | None = None) -> list[Path]:
+    """Snakemake lock files in ``<workdir>/.snakemake/locks`` that list only files of this study (and of
+    the shared store of solves ``store``, at least one file being the study's own)."""
     workdir = Path(workdir).resolve()
     root = (layout.root if layout.root.is_absolute() else workdir / layout.root).resolve()
+    extra = [(Path(store) if Path(store).is_absolute() else workdir / store).resolve()] if store is not None else []
     out = []
     for f in sorted((workdir / ".snakemake" / "locks").glob("*.lock")):
         try:
@@ -273,7 +275,9 @@ def stale_snakemake_locks(layout: StudyLayout, workdir: str | Path = ".") -> lis
         except OSError:
             continue
         paths = [Path(k) if Path(k).is_absolute() else workdir / k for k in keys]
-        if paths and all(_inside(Path(os.path.normpath(p)), root) for p in paths):
+        paths = [Path(os.path.normpath(p)) for p in paths]
+        if (paths and all(any(_inside(p, r) for r in [root, *extra]) for p in paths)
+                and any(_inside(p, root) for p in paths)):
             out.append(f)
     return out
 
@@ -287,7 +291,7 @@ def stale_temporaries(layout: StudyLayout) -> list[Path]:
     return sorted(tmp) + scratch
 
 
-def clear_interrupted(layout: StudyLayout, workdir: str | Path = ".") -> dict[str, int]:
+def clear_interrupted(layout: StudyLayout, workdir: str | Path = ".", store: Path | None = None) -> dict[str, int]:
     """Remove what a killed run of this study left (call only while holding its :class:`StudyLock`).
 
     Returns
@@ -296,7 +300,7 @@ def clear_interrupted(layout: StudyLayout, workdir: str | Path = ".") -> dict[st
         ``{"snakemake_locks": n, "temporaries": n}``: how many lock files and temporaries (files or
         scratch folders) were removed.
     """
-    locks = stale_snakemake_locks(layout, workdir)
+    locks = stale_snakemake_locks(layout, workdir, store)
     for f in locks:
         f.unlink(missing_ok=True)
     temps = stale_temporaries(layout)
@@ -305,4 +309,10 @@ def clear_interrupted(layout: StudyLayout, workdir: str | Path = ".") -> dict[st
             shutil.rmtree(p, ignore_errors=True)
         else:
             p.unlink(missing_ok=True)
-    return {"snakemake_locks": len(locks), "temporaries": len(temps)}
+    n_solves = 0
+    if store is not None and layout.cases_dir.is_dir():  # the study's solves that no job holds now
+        from .store import clear_solve_leftovers
+
+        for d in sorted({p.resolve() for p in layout.cases_dir.glob("*/solve") if p.is_dir()}):
+            n_solves += clear_solve_leftovers(d)
+    return {"snakemake_locks": len(locks), "temporaries": len(temps) + n_solves}

@@ -17,7 +17,7 @@ import time
 import traceback
 from pathlib import Path
 
-from .atomic import atomic_path, write_json
+from .atomic import atomic_path, json_text, write_if_changed, write_json
 from .layout import StudyLayout
 
 FAILED = "failed"
@@ -52,14 +52,27 @@ def _placeholder_png(path: Path, text: str) -> None:
 
 
 # -- scene ---------------------------------------------------------------------------------------------
-def build_scene(case_dir: str | Path) -> dict:
-    """Build the case's scene at its frequency: ``scene.json`` (``SceneModel.to_dict()``) and ``preview.png``.
+def _inputs(folder: Path) -> dict:
+    """``solve.json`` of a solve folder in the store, else ``case.json`` of a case folder."""
+    return _read(folder / "solve.json") if (folder / "solve.json").exists() else _read(folder / "case.json")
 
+
+def build_scene(case_dir: str | Path) -> dict:
+    """Build the scene at its frequency: ``scene.json`` (``SceneModel.to_dict()``) and ``preview.png``.
+
+    ``case_dir`` is a solve folder of the store (``solve.json``) or a case folder (``case.json``).
     On a geometry error ``scene.json`` holds ``{"status": "failed", "reason": ...}`` and the preview
     shows the reason. Returns what was written to ``scene.json``.
     """
+    from .store import solve_lock
+
     case_dir = Path(case_dir)
-    case = _read(case_dir / "case.json")
+    case = _inputs(case_dir)
+    with solve_lock(case_dir):  # not while a solve job of another study's run works in this folder
+        return _build_scene_locked(case_dir, case)
+
+
+def _build_scene_locked(case_dir: Path, case: dict) -> dict:
     try:
         from bodysweep.geometry.scene import Scene
 
@@ -86,13 +99,34 @@ def build_scene(case_dir: str | Path) -> dict:
 def solve(case_dir: str | Path, port: int, threads: int = 1) -> dict:
     """Run the FDTD excitation of ``port``; always leaves ``excite_<port>/status.json``.
 
-    A failed scene or solver error gives a status ``{"status": "failed", "reason": ...}``.
+    ``case_dir`` is a solve folder of the store (or a case folder). The whole step holds the folder's
+    lock (:func:`.store.solve_lock`); an excitation already finished there with status ok (by another
+    study's run meanwhile, or kept in ``outcome.json`` when Snakemake removed ``status.json`` to redo
+    the job) is taken as it is, not solved again. A failed scene or solver error gives a status
+    ``{"status": "failed", "reason": ...}``.
     """
+    from .store import keep_outcome, kept_outcome, solve_lock
+
     case_dir = Path(case_dir)
+    with solve_lock(case_dir):
+        kept = kept_outcome(case_dir, port)
+        if kept is not None:
+            print(f"excitation of port {port} already solved in {case_dir}: taken as it is")
+            # same content keeps the file and its modification time (finished cases stay finished)
+            write_if_changed(case_dir / f"excite_{int(port)}" / "status.json", json_text(kept))
+            return kept
+        out = _solve_unlocked(case_dir, port, threads)
+        keep_outcome(case_dir, port, out)
+        return out
+
+
+def _solve_unlocked(case_dir: Path, port: int, threads: int) -> dict:
     status_path = case_dir / f"excite_{int(port)}" / "status.json"
     scene = None
     try:
         scene = _read(case_dir / "scene.json")
+    except FileNotFoundError:  # removed meanwhile by another study's scene job: the solver builds it itself
+        scene = None
     except (OSError, ValueError) as exc:
         scene = {"status": FAILED, "reason": f"scene.json unreadable: {_one_line(exc)}"}
     if _failed(scene):
@@ -120,17 +154,22 @@ def solve(case_dir: str | Path, port: int, threads: int = 1) -> dict:
 
 
 # -- finish --------------------------------------------------------------------------------------------
-def finish(case_dir: str | Path, ports: list[int]) -> dict:
+def finish(case_dir: str | Path, ports: list[int], solve_dir: str | Path | None = None) -> dict:
     """S-matrix, SAR and link budget of a case; always leaves ``metrics.json``.
 
-    When an excitation failed, ``metrics.json`` is a failure record carrying that excitation's reason.
+    ``solve_dir``: the case's solve folder in the store (default: the case folder itself). When an
+    excitation failed, ``metrics.json`` is a failure record carrying that excitation's reason.
     """
     case_dir = Path(case_dir)
+    solve_dir = Path(solve_dir) if solve_dir is not None else case_dir
     case = _read(case_dir / "case.json")
     base = {"case_id": case.get("case_id"), "frequency_Hz": case.get("frequency_Hz")}
+    from .store import kept_outcome
+
     for p in ports:
         try:
-            st = _read(case_dir / f"excite_{int(p)}" / "status.json")
+            # a status another study's rerun of the job removed a moment ago is still kept as the outcome
+            st = kept_outcome(solve_dir, p) or _read(solve_dir / f"excite_{int(p)}" / "status.json")
         except (OSError, ValueError) as exc:
             st = {"status": FAILED, "reason": f"excite_{p}/status.json unreadable: {_one_line(exc)}"}
         if _failed(st):
@@ -140,7 +179,7 @@ def finish(case_dir: str | Path, ports: list[int]) -> dict:
     try:
         from .solver.case import finish_case
 
-        finish_case(case_dir)
+        finish_case(case_dir, solve_dir)
         out = _read(case_dir / "metrics.json")
     except Exception as exc:
         traceback.print_exc()
@@ -177,6 +216,7 @@ def main(argv: list[str] | None = None) -> int:
     s = sub.add_parser("finish")
     s.add_argument("case_dir")
     s.add_argument("--ports", type=int, nargs="+", required=True)
+    s.add_argument("--solve-dir", default=None, help="the case's solve folder in the store")
     for verb in ("collect", "report"):
         s = sub.add_parser(verb)
         s.add_argument("study_root")
@@ -186,7 +226,7 @@ def main(argv: list[str] | None = None) -> int:
     elif a.verb == "solve":
         r = solve(a.case_dir, a.port, a.threads)
     elif a.verb == "finish":
-        r = finish(a.case_dir, a.ports)
+        r = finish(a.case_dir, a.ports, a.solve_dir)
     elif a.verb == "collect":
         collect(a.study_root)
         return 0

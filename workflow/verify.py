@@ -1,4 +1,5 @@
-"""Integrity check of a study's outputs: case files present, ids matching content, tables matching cases."""
+"""Integrity check of a study's outputs: case files present, ids matching content, the solves the study
+refers to in the shared store (:mod:`.store`), tables matching cases."""
 from __future__ import annotations
 
 import numpy as np
@@ -6,22 +7,19 @@ import pandas as pd
 
 from .layout import StudyLayout, read_plan
 from .pipeline import OK_STATUSES, read_json
+from .study.cases import case_identities
 
 #: files every case folder has once its case ran (ok or not), and those only a finished case has
-ALWAYS = ("case.json", "scene.json", "preview.png", "metrics.json")
+ALWAYS = ("case.json", "metrics.json")
 ON_SUCCESS = ("result.h5", "sparams.s2p")
 
 
 def case_json2case_id(case: dict) -> str:
     """Recompute a case's id from its ``case.json`` content (the study layer's identity rule)."""
-    from .study.cases import identity_content
-    from .study.identity import content2case_id
-
-    return content2case_id(identity_content(case["scene"], case["frequency_Hz"], case["solver"], case["sar"],
-                                            case.get("excite_ports", [1]), case["versions"]))
+    return case_identities(case)[1]
 
 
-def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
+def verify_case(layout: StudyLayout, entry: dict, store=None) -> list[str]:
     """Problems of one case folder (empty list: consistent)."""
     cid = entry["case_id"]
     d = layout.case_dir(cid)
@@ -42,6 +40,13 @@ def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
                 out.append(f"{cid}: case.json content hashes to {again}, not to its folder name")
         if case.get("case_id") != cid:
             out.append(f"{cid}: case.json says case_id {case.get('case_id')!r}")
+        try:
+            sid = case_identities(case)[0]
+        except Exception:
+            sid = None
+        if sid is not None and (case.get("solve_id") != sid or entry.get("solve_id") != sid):
+            out.append(f"{cid}: case.json content gives solve id {sid}, case.json / plan.json say "
+                       f"{case.get('solve_id')!r} / {entry.get('solve_id')!r}")
     m = read_json(d / "metrics.json")
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
@@ -52,9 +57,13 @@ def verify_case(layout: StudyLayout, entry: dict) -> list[str]:
                     if name == "sparams.s2p" and 2 not in entry.get("ports", [1]):
                         name = "sparams.s1p"
                     out.append(f"{cid}: status {m.get('status')} but {name} missing")
-            for p in entry.get("ports", [1]):
-                if not (d / f"excite_{p}" / "status.json").exists():
-                    out.append(f"{cid}: status {m.get('status')} but excite_{p}/status.json missing")
+            if store is not None and entry.get("solve_id"):
+                sd = store / entry["solve_id"]
+                for p in entry.get("ports", [1]):
+                    st = read_json(sd / f"excite_{p}" / "status.json")
+                    if st is None or st.get("status") != "ok":
+                        out.append(f"{cid}: status {m.get('status')} but its solve's excite_{p}/status.json is "
+                                   f"{'missing' if st is None else st.get('status')}")
             out += verify_metrics(d, cid, m)
         elif not m.get("reason"):
             out.append(f"{cid}: status {m.get('status')!r} without a reason")
@@ -204,12 +213,26 @@ def verify_tables(layout: StudyLayout, entries: list[dict]) -> list[str]:
     return out
 
 
-def verify_study(layout: StudyLayout) -> tuple[list[str], int]:
-    """All problems of a study's outputs and the number of cases checked."""
+def verify_study(layout: StudyLayout, store=None) -> tuple[list[str], int]:
+    """All problems of a study's outputs and of its solves in the store, and the number of cases checked.
+
+    ``store``: the store folder (default :func:`.store.store_root` of the study's results folder).
+    """
+    from pathlib import Path
+
+    from .store import store_root, verify_solve
+
+    store = Path(store) if store is not None else store_root(layout.root.parent)
     entries = read_plan(layout)["cases"]
     problems: list[str] = []
     for e in entries:
-        problems += verify_case(layout, e)
+        problems += verify_case(layout, e, store)
+    ports: dict[str, list] = {}
+    for e in entries:
+        if e.get("solve_id"):
+            ports.setdefault(e["solve_id"], e.get("ports", [1]))
+    for sid, p in sorted(ports.items()):
+        problems += verify_solve(store, sid, p)
     problems += verify_tables(layout, entries)
     return problems, len(entries)
 

@@ -107,7 +107,7 @@ def test_study_on_slurm_matches_local_run(slurm_cluster, slurm_env, tmp_path):
     measured = []
     for entry in plan:
         case_dir = root / "cases" / entry["case_id"]
-        status = json.loads((case_dir / "excite_1" / "status.json").read_text())
+        status = json.loads((case_dir / "solve" / "excite_1" / "status.json").read_text())
         metrics = json.loads((case_dir / "metrics.json").read_text())
         failing = FAILING_LABEL_PART in entry["label"]
         # the solver ran inside a SLURM job (it records SLURM_JOB_ID) that SLURM completed in our partition

@@ -146,7 +146,7 @@ def test_external_dipole_must_be_horizontal_and_casing_needs_material():
     with pytest.raises(ValueError, match="casing: needs thickness_m"):
         ExternalAntenna.from_dict({"type": "dipole", "length_m": 0.05, "feed_gap_m": 0.001,
                                    "casing": {"eps_r": 3.0}})
-    with pytest.raises(ValueError, match="type must be one of \\['dipole', 'loop'\\]"):
+    with pytest.raises(ValueError, match="type must be one of \\['cad', 'dipole', 'loop'\\]"):
         ExternalAntenna.from_dict({"type": "patch"})
     with pytest.raises(ValueError, match="impedance_ohm must be > 0"):
         ExternalAntenna(Dipole(0.05, 0.001, "x"), impedance_ohm=0.0)

@@ -96,12 +96,13 @@ def test_accept_cost_runs_and_the_disk_estimate_bounds_the_real_files(tmp_path):
     (cid,) = [e["case_id"] for e in json.loads((root / "plan.json").read_text())["cases"]]
     case = root / "cases" / cid
     assert json.loads((case / "metrics.json").read_text())["status"] in ("ok", "warning")
-    cells = json.loads((case / "excite_1" / "status.json").read_text())["cells"]
+    cells = json.loads((case / "solve" / "excite_1" / "status.json").read_text())["cells"]
     est = case_disk_bytes(cells, n_masses=2, n_excitations=1)
-    used = sum(p.stat().st_size for p in final_files(case))  # the file system's own sizes
+    # the file system's own sizes, of the case folder and of its solve in the shared store
+    used = sum(p.stat().st_size for p in final_files(case) + final_files((case / "solve").resolve()))
     assert used < est["disk_B"] < 5 * used, (used, est)
     # the arrays' uncompressed size as h5py reports it stays below the per-cell figures
-    with h5py.File(case / "excite_1" / "fields_raw.h5", "r") as h5:
+    with h5py.File(case / "solve" / "excite_1" / "fields_raw.h5", "r") as h5:
         nbytes = sum(h5[k].nbytes for k in h5 if h5[k].ndim >= 3)
     assert nbytes <= cells * 72
     p = run(["plan", str(study), "--max-disk-GB", "0.0001"], tmp_path)  # nothing left to run: within budget

@@ -1,14 +1,14 @@
 """The uncertainty budget on a real tiny study (tests/pipeline/data/budget.yaml: 2 cases + 8 component runs).
 
-The two cases are built so that the ordering of three components is known beforehand:
+The two cases are built so that the ordering of two components is known beforehand:
 - boundary: the absorbing boundary 0.1 wavelength from the structure is moved out by 0.25 wavelength; the
   case with 0.4 wavelength already far out must change much less (common practice: the boundary
   component vanishes as the boundary recedes, IEC/IEEE 62704-1 §7 asks for it to be checked by moving it);
-- end criterion: a run stopped at -20 dB of field energy is truncated in time more than one at -40 dB, so a
-  20 dB deeper criterion changes it more (the Fourier transform of a truncated transient, common practice);
+- end criterion: its run exists and gives a finite deviation (no ordering: see the test);
 - power balance: the component is max(0, energy_balance - 1) of the case itself (definition, checked exactly).
 """
 import copy
+import math
 import os
 from pathlib import Path
 
@@ -68,7 +68,11 @@ def test_known_orderings_of_the_components(ran):
     far = summary[summary["solver.air_margin_wavelengths"] == 0.4].iloc[0]
     for q in ("peak_SAR_1g", "peak_SAR_10g"):
         assert abs(_dev(u, near.case_id, q, "boundary")) > 5 * abs(_dev(u, far.case_id, q, "boundary"))
-        assert abs(_dev(u, near.case_id, q, "end_criterion")) > abs(_dev(u, far.case_id, q, "end_criterion"))
+    # end criterion: no ordering asserted. Since the solve step runs every excitation past its pulse, the -20 dB
+    # and -40 dB cases' end-criterion deviations are both small and their order differed between two runs
+    # (peak 1 g SAR 0.9 % vs 1.9 % and 1.2 % vs 2.4 %; S21 0.16 dB vs 0.05 dB and 0.0003 dB vs 0.02 dB)
+    for row in (near, far):
+        assert math.isfinite(_dev(u, row.case_id, "S21", "end_criterion"))
     for row in (near, far):
         assert _dev(u, row.case_id, "peak_SAR_1g", "power_balance") == pytest.approx(max(0.0, row.energy_balance - 1))
         assert _dev(u, row.case_id, "S21", "power_balance") == 0.0

@@ -19,8 +19,11 @@ from helpers_reliability import (fingerprint, group_alive, kill_group, plan_ids,
 pytestmark = [pytest.mark.pipeline, pytest.mark.solver, pytest.mark.timeout(600)]
 
 
-def _engine_child(pgid: int):
-    """``(pid, case_id)`` of a running engine child process in the group, else None."""
+def _engine_child(pgid: int, root: Path):
+    """``(pid, case_id)`` of a running engine child process in the group, else None.
+
+    The engine runs in the case's solve folder of the store (``_solves/<solve_id>``); plan.json names
+    the case of that solve."""
     for pid in group_alive(pgid):
         try:
             args = [a.decode() for a in Path(f"/proc/{pid}/cmdline").read_bytes().split(b"\0") if a]
@@ -33,6 +36,9 @@ def _engine_child(pgid: int):
                     return pid, p.name
                 if p.parent.parent.name == "cases" and len(p.parent.name) == 12:
                     return pid, p.parent.name
+                if p.parent.name == "_solves" and len(p.name) == 12:
+                    cases = json.loads((root / "plan.json").read_text())["cases"]
+                    return pid, next(e["case_id"] for e in cases if e["solve_id"] == p.name)
     return None
 
 
@@ -41,7 +47,7 @@ def test_killed_engine_fails_its_case_only_and_retry_reruns_only_it(tmp_path):
     root = tmp_path / "results" / "tiny_retry"
     proc = start_run(study, tmp_path, "--cores", "2")
     try:
-        pid, bad = wait_for(lambda: _engine_child(os.getpgid(proc.pid)), 240, "an engine process", proc=proc)
+        pid, bad = wait_for(lambda: _engine_child(os.getpgid(proc.pid), root), 240, "an engine process", proc=proc)
         os.kill(pid, signal.SIGKILL)  # the engine of one case dies; the pipeline itself goes on
         out, err = proc.communicate(timeout=400)
     finally:

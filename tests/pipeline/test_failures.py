@@ -42,16 +42,17 @@ def test_failed_case_is_recorded_and_retried(tmp_path, monkeypatch, capsys):
     other = s[s["scene.implant.depth_mm"] == 9].iloc[0]
     import json
 
-    st = json.loads((layout.case_dir(other["case_id"]) / "excite_1" / "status.json").read_text())
+    st = json.loads((layout.case_dir(other["case_id"]) / "solve" / "excite_1" / "status.json").read_text())
     assert st["timesteps"] and st["timesteps"] > 1000
     assert other["status"] == "ok" or (other["reason"] and "timesteps" not in other["reason"])
     n_failed = int((s["status"] == "failed").sum())
     # failures are kept by default: nothing is scheduled again
     assert _case_jobs(scheduled_jobs(study, workdir=tmp_path)) == {"scene": 0, "solve": 0, "finish": 0}
-    # --retry-failed resets exactly the failed cases, and Snakemake then reruns exactly those
+    # --retry-failed resets exactly the failed cases (and their failed excitations in the store; the
+    # scene built fine and is kept), and Snakemake then reruns exactly those
     prep = prepare(study, "results")
     assert len(reset_failed(prep.layout, prep.entries)) == n_failed
-    assert _case_jobs(scheduled_jobs(study, workdir=tmp_path)) == {"scene": n_failed, "solve": n_failed,
+    assert _case_jobs(scheduled_jobs(study, workdir=tmp_path)) == {"scene": 0, "solve": n_failed,
                                                                    "finish": n_failed}
     shutil.rmtree(tmp_path / "results")
 

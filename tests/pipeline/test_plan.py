@@ -13,9 +13,9 @@ def test_plan_does_not_import_openems(tmp_path):
     assert p.returncode == 0, p.stderr
     assert "IMPORTED []" in p.stdout
     rows = [ln for ln in p.stdout.splitlines() if "f=915MHz" in ln]
-    assert len(rows) == 2 and all(" to run " in r for r in rows)
+    assert len(rows) == 2 and all(" to solve " in r for r in rows)
     # the cell count comes from the automatic mesh of each case (a positive integer)
-    cells = [int(r.split("to run")[1].split()[0]) for r in rows]
+    cells = [int(r.split("to solve")[1].split()[0]) for r in rows]
     assert all(c > 1000 for c in cells)
     assert "total: 2 cases" in p.stdout
     assert not (tmp_path / "results").exists()  # planning writes nothing

@@ -113,7 +113,7 @@ def test_plan_reports_changed_cases(ran, capsys):
     finally:
         os.chdir(old)
     rows = [ln for ln in out.splitlines() if "f=915MHz" in ln]
-    assert len(rows) == 2 and all(" changed " in r for r in rows)
+    assert len(rows) == 2 and all(" to solve " in r and "changed (was " in r for r in rows)
     assert "2 changed" in out
     rows = [ln for ln in out_same.splitlines() if "f=915MHz" in ln]
-    assert len(rows) == 2 and not any(" changed " in r or " to run " in r for r in rows)
+    assert len(rows) == 2 and not any("changed" in r or " to solve " in r or " to finish " in r for r in rows)

@@ -34,7 +34,7 @@ def test_round_trip(work, capsys):
 
     assert cli.main(["plan", study, "--accept-cost"]) == 0
     out = capsys.readouterr().out
-    assert out.count(" to run ") == 2 and "total: 2 cases" in out
+    assert out.count(" to solve ") == 2 and "total: 2 cases" in out
 
     rc = cli.main(["run", study, "--cores", "2", "--accept-cost"])
     out = capsys.readouterr().out
@@ -68,7 +68,7 @@ def test_round_trip(work, capsys):
 
     assert cli.main(["plan", study]) == 0
     out = capsys.readouterr().out
-    assert " to run " not in out  # everything is done or failed now
+    assert " to solve " not in out and " to finish " not in out  # everything is done or failed now
 
     assert cli.main(["collect", study]) == 0
     assert cli.main(["report", study]) == 0

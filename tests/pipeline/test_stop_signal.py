@@ -86,9 +86,9 @@ def test_sigint_mid_run_stops_everything_and_the_rerun_solves_only_the_unfinishe
             if not (root / "plan.json").exists():
                 return None
             ids = plan_ids(root)
-            solved = [c for c in ids if (root / "cases" / c / "excite_1" / "status.json").exists()]
-            running = [c for c in ids if (root / "cases" / c / "excite_1" / ".engine_run" / "sim").is_dir()
-                       and not (root / "cases" / c / "excite_1" / "status.json").exists()]
+            solved = [c for c in ids if (root / "cases" / c / "solve" / "excite_1" / "status.json").exists()]
+            running = [c for c in ids if (root / "cases" / c / "solve" / "excite_1" / ".engine_run" / "sim").is_dir()
+                       and not (root / "cases" / c / "solve" / "excite_1" / "status.json").exists()]
             if solved and running and _engines(_run_pids(proc)):
                 return _run_pids(proc)
             return None
@@ -110,8 +110,8 @@ def test_sigint_mid_run_stops_everything_and_the_rerun_solves_only_the_unfinishe
     assert not list((tmp_path / ".snakemake" / "locks").glob("*.lock"))  # Snakemake released its locks
 
     ids = plan_ids(root)
-    solved = {c: (root / "cases" / c / "excite_1" / "status.json") for c in ids
-              if (root / "cases" / c / "excite_1" / "status.json").exists()}
+    solved = {c: (root / "cases" / c / "solve" / "excite_1" / "status.json") for c in ids
+              if (root / "cases" / c / "solve" / "excite_1" / "status.json").exists()}
     assert 1 <= len(solved) < len(ids), solved
     for c, st in solved.items():  # a solve killed by the stop never records a failure
         assert json.loads(st.read_text())["status"] == "ok", (c, st.read_text())
@@ -120,7 +120,8 @@ def test_sigint_mid_run_stops_everything_and_the_rerun_solves_only_the_unfinishe
     # Snakemake stopped between a solve's end and registering it keeps that output's incomplete mark
     # (the "Forced execution" reruns); make one such mark, dated when its job started
     some = sorted(solved)[0]
-    rel = f"results/tiny_stop/cases/{some}/excite_1/status.json"
+    # the solve's status lies in the shared store of solves (results/_solves/<solve_id>/, README)
+    rel = os.path.relpath((root / "cases" / some / "solve").resolve(), tmp_path) + "/excite_1/status.json"
     mark = _snakemake_mark(tmp_path, rel)
     mark.parent.mkdir(parents=True, exist_ok=True)
     mark.write_text(json.dumps({"external_jobid": None}))

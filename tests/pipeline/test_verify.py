@@ -32,7 +32,7 @@ def finished(tmp_path_factory):
 def copy(finished, tmp_path, monkeypatch, capsys):
     """A fresh copy of the finished results; returns (verify() -> (exit code, output), study root, case dir)."""
     work, study = finished
-    shutil.copytree(work / "results", tmp_path / "results")
+    shutil.copytree(work / "results", tmp_path / "results", symlinks=True)  # case/solve links stay links
     monkeypatch.chdir(tmp_path)
     root = tmp_path / "results" / "tiny_verify"
     (cid,) = plan_ids(root)
@@ -53,12 +53,31 @@ def _edit_json(path: Path, edit) -> None:
     path.write_text(json.dumps(d, indent=1))
 
 
-@pytest.mark.parametrize("name", ["result.h5", "sparams.s1p", "metrics.json", "scene.json", "excite_1/status.json"])
+@pytest.mark.parametrize("name", ["result.h5", "sparams.s1p", "metrics.json"])
 def test_deleted_case_file(copy, name):
     verify, root, case = copy
     (case / name).unlink()
     rc, out = verify()
     assert rc == 3 and f"{case.name}: " in out and f"{Path(name).name} missing" in out, out
+
+
+@pytest.mark.parametrize("name", ["scene.json", "excite_1/status.json", "excite_1/signals.h5", "solve.json"])
+def test_deleted_solve_file(copy, name):
+    """A file missing in the case's solve folder of the shared store is named with the solve id."""
+    verify, root, case = copy
+    solve = (case / "solve").resolve()
+    (solve / name).unlink()
+    rc, out = verify()
+    assert rc == 3 and f"solve {solve.name}: " in out and f"{Path(name).name} missing" in out, out
+
+
+def test_edited_solve_record_is_caught(copy):
+    """solve.json edited behind the store's back no longer hashes to its folder name (sha256, FIPS 180-4)."""
+    verify, root, case = copy
+    p = (case / "solve").resolve() / "solve.json"
+    _edit_json(p, lambda d: d["solver"].update(end_criterion_dB=-33.0))
+    rc, out = verify()
+    assert rc == 3 and "solve.json hashes to" in out, out
 
 
 @pytest.mark.parametrize("name", ["summary.csv", "sar.parquet"])

@@ -122,3 +122,20 @@ def test_half_domain_gives_the_full_domain_s_parameters_and_sar(tmp_path):
         assert rf["mass_kg"] == rh["mass_kg"]
         # peak 1 g / 10 g SAR per W within 2 % (cubes straddling the wall see the unfolded field)
         assert abs(rh["peak_W_per_kg_per_W"] / rf["peak_W_per_kg_per_W"] - 1) < 0.02, (rf, rh)
+
+
+def test_cad_part_symmetric_about_x_and_not_about_y(tmp_path):
+    """An STL dipole centred on x = 0 is its own mirror image about x = 0; shifted along y it has no image
+    about y = 0 (analytic: the reflection of the shifted part lies on the other side)."""
+    import sys
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "geometry"))
+    from test_cad import strip_dipole_mm, write_stl
+
+    f = write_stl(tmp_path / "d.stl", strip_dipole_mm(50, 2, 2, 1))
+    ext = {"type": "cad", "file": f, "unit": "mm", "feed_start_m": [-0.001, 0.0, 0.0],
+           "feed_stop_m": [0.001, 0.0, 0.0], "feed_axis": "x", "standoff_m": 0.005}
+    model = Scene.from_dict({"phantom": {"type": "none"}, "external": ext}).build(2.45e9)
+    mirror.check_symmetric(model, "x")
+    shifted = Scene.from_dict({"phantom": {"type": "none"}, "external": dict(ext, offset_m=[0.0, 0.003, 0.0])})
+    with pytest.raises(ValueError, match="not symmetric about y"):
+        mirror.check_symmetric(shifted.build(2.45e9), "y")

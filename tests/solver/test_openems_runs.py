@@ -79,6 +79,14 @@ def test_finish_writes_touchstone_result_and_metrics(two_port_case):
         assert json.loads(h5.attrs["versions"])["adapter"] == ADAPTER_VERSION
         assert "materials" in json.loads(h5.attrs["scene"])
     assert np.allclose(ntw.f, f_band) and np.allclose(ntw.s, S_band, atol=1e-9)
+    # the finish step transforms the stored time signals at its own band points; at the solve's points it
+    # gives the solve's stored phasors (the same discrete Fourier sum, sparams.dft)
+    from bodysweep.workflow.solver.case import read_excitation
+
+    stored = read_excitation(case / "excite_1")
+    again = read_excitation(case / "excite_1", stored["f_band_Hz"])
+    assert np.allclose(again["V_band"], stored["V_band"], rtol=1e-12, atol=0)
+    assert np.allclose(again["I_band"], stored["I_band"], rtol=1e-12, atol=0)
     assert f_band[0] == pytest.approx(F0 * 0.85) and f_band[-1] == pytest.approx(F0 * 1.15)
     # the averaged SAR can never exceed the largest local SAR, and the 10 g average is positive in tissue
     # (a mass average of non-negative values lies between their min and max: analytic)

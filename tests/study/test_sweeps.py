@@ -173,7 +173,7 @@ def test_parameters_and_labels_carry_edge_units():
 def test_case_dict_has_the_case_folder_contract_keys():
     d = _study(P, [{"grid": {"depth": [5]}}], excite=[1, 2])
     c = expand(load_study(d))[0].to_dict()
-    assert set(c) == {"case_id", "label", "study", "parameters", "frequency_Hz", "scene", "solver", "sar",
+    assert set(c) == {"case_id", "solve_id", "label", "study", "parameters", "frequency_Hz", "scene", "solver", "sar",
                       "excite_ports", "versions"}
     assert c["excite_ports"] == [1, 2] and c["solver"]["excite_ports"] == [1, 2]
     assert set(c["versions"]) == {"builder", "adapter", "post"}

@@ -1,10 +1,10 @@
 rule scene:
     input:
-        f"{CASES}/{{case}}/case.json",
+        f"{STORE}/{{solve}}/solve.json",
     output:
-        scene=f"{CASES}/{{case}}/scene.json",
-        preview=f"{CASES}/{{case}}/preview.png",
+        scene=f"{STORE}/{{solve}}/scene.json",
+        preview=f"{STORE}/{{solve}}/preview.png",
     log:
-        f"{CASES}/{{case}}/logs/scene.log",
+        f"{STORE}/{{solve}}/logs/scene.log",
     shell:
-        '"{PY}" -m bodysweep.workflow.steps scene "{CASES}/{wildcards.case}" > "{log}" 2>&1'
+        '"{PY}" -m bodysweep.workflow.steps scene "{STORE}/{wildcards.solve}" > "{log}" 2>&1'

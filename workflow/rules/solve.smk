@@ -2,17 +2,17 @@ from bodysweep.workflow.cluster import cluster_resources, cluster_threads
 
 rule solve:
     input:
-        case=f"{CASES}/{{case}}/case.json",
-        scene=f"{CASES}/{{case}}/scene.json",
+        case=f"{STORE}/{{solve}}/solve.json",
+        scene=f"{STORE}/{{solve}}/scene.json",
     output:
-        f"{CASES}/{{case}}/excite_{{port}}/status.json",
+        f"{STORE}/{{solve}}/excite_{{port}}/status.json",
     log:
-        f"{CASES}/{{case}}/logs/solve_{{port}}.log",
+        f"{STORE}/{{solve}}/logs/solve_{{port}}.log",
     # On a cluster (non-local executor) threads, memory and time limit come from the case's cost
     # estimate (bodysweep.workflow.cluster); locally threads_per_job applies. Snakemake knows its
     # executor only at job time, hence the callables.
-    threads: cluster_threads(lambda wc: f"{CASES}/{wc.case}", RUN.threads_per_job, lambda: not workflow.local_exec)
-    resources: **cluster_resources(lambda wc: f"{CASES}/{wc.case}", lambda: not workflow.local_exec)
+    threads: cluster_threads(lambda wc: f"{STORE}/{wc.solve}", RUN.threads_per_job, lambda: not workflow.local_exec)
+    resources: **cluster_resources(lambda wc: f"{STORE}/{wc.solve}", lambda: not workflow.local_exec)
     shell:
-        '"{PY}" -m bodysweep.workflow.steps solve "{CASES}/{wildcards.case}" --port {wildcards.port}'
+        '"{PY}" -m bodysweep.workflow.steps solve "{STORE}/{wildcards.solve}" --port {wildcards.port}'
         ' --threads {threads} > "{log}" 2>&1'

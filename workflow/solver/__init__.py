@@ -6,4 +6,5 @@ Modules: ``engine`` (engine access, log parsing), ``build`` (scene + mesh -> CSX
 """
 
 #: bump when a change here alters results (part of every case identity)
-ADAPTER_VERSION = "2"  # 2: runs judged on their energy trace and length (diverged / truncated fail); half-domain PML thickness fix
+ADAPTER_VERSION = "3"  # 3: solves live in the shared store (solve.json), the band is taken at the finish step
+# 2: runs judged on their energy trace and length (diverged / truncated fail); half-domain PML thickness fix

@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from bodysweep.geometry.model import SceneModel
-from bodysweep.geometry.primitives import AXES, Box, Cylinder, Polygon, Wire
+from bodysweep.geometry.primitives import AXES, Box, Cylinder, Polygon, Polyhedron, Wire
 
 from . import engine
 
@@ -32,6 +32,8 @@ __all__ = ["BuildReport", "build_csx", "DEFAULT_SHEET_THICKNESS_M"]
 
 #: modelled thickness of a zero-thickness finite-conductivity sheet (35 um: 1 oz copper, common practice)
 DEFAULT_SHEET_THICKNESS_M = 35e-6
+#: a polyhedron's surface is moved outward by this fraction of the smallest cell (see inflated_vertices)
+FILL_MARGIN_CELLS = 0.01
 
 
 @dataclass
@@ -81,7 +83,25 @@ def _setting(settings, key: str, default):
     return getattr(settings, key, default)
 
 
-def _add_primitive(prop, prim, priority: int) -> None:
+def inflated_vertices(prim: Polyhedron, margin: float) -> np.ndarray:
+    """The polyhedron's vertices moved ``margin`` metres outward along their area-weighted normals, (n, 3).
+
+    The engine takes vertices in single precision and decides inside / outside of a mesh node lying on
+    a face by chance, while the mesher puts lines exactly on a part's bounding faces. Moving the surface
+    out by a small fraction of a cell makes such nodes inside, as a box or cylinder counts its surface.
+    """
+    v = np.asarray(prim.vertices, dtype=float)
+    f = np.asarray(prim.faces)
+    n = np.cross(v[f[:, 1]] - v[f[:, 0]], v[f[:, 2]] - v[f[:, 0]])  # outward for counter-clockwise faces
+    vn = np.zeros_like(v)
+    for k in range(3):
+        np.add.at(vn, f[:, k], n)
+    norm = np.linalg.norm(vn, axis=1)
+    norm[norm == 0] = 1.0
+    return v + margin * vn / norm[:, None]
+
+
+def _add_primitive(prop, prim, priority: int, fill_margin: float = 0.0) -> None:
     if isinstance(prim, Box):
         prop.AddBox(list(prim.start), list(prim.stop), priority=priority)
     elif isinstance(prim, Cylinder):
@@ -99,7 +119,13 @@ def _add_primitive(prop, prim, priority: int) -> None:
             prop.AddLinPoly(pts, n, float(prim.elevation), float(prim.thickness), priority=priority)
         else:
             prop.AddPolygon(pts, n, float(prim.elevation), priority=priority)
-    else:  # pragma: no cover - SceneModel only holds the four kinds
+    elif isinstance(prim, Polyhedron):
+        solid = prop.AddPolyhedron(priority=priority)
+        for q in inflated_vertices(prim, fill_margin):
+            solid.AddVertex(*map(float, q))
+        for f in prim.faces:
+            solid.AddFace([int(k) for k in f])
+    else:  # pragma: no cover - SceneModel only holds the five kinds
         raise ValueError(f"primitive {getattr(prim, 'name', prim)!r}: unsupported kind {type(prim).__name__}")
 
 
@@ -143,6 +169,7 @@ def build_csx(model: SceneModel, plan, settings=None, csx=None):
     report.cells = int(np.prod([lines[a].size - 1 for a in AXES]))
     ilo, ihi = _interior(plan)
     sheet_t = float(_setting(settings, "sheet_thickness_m", DEFAULT_SHEET_THICKNESS_M))
+    fill_margin = FILL_MARGIN_CELLS * min(float(np.diff(lines[a]).min()) for a in AXES)
 
     by_material: dict[str, list] = {}
     for prim in model.primitives:
@@ -205,7 +232,7 @@ def build_csx(model: SceneModel, plan, settings=None, csx=None):
                         report.clipped.append(prim.name)
                     else:
                         overhang = True
-            _add_primitive(prop, prim, prim.priority)
+            _add_primitive(prop, prim, prim.priority, fill_margin)
 
     if overhang:
         air = csx.AddMaterial("absorber_air", epsilon=1.0, kappa=0.0)

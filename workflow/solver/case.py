@@ -1,6 +1,7 @@
 """Finish a case: S-matrix, SAR, link budget and the case's output files.
 
-:func:`finish_case` reads what the excitations left in ``excite_<p>/`` (see :mod:`.run`) and writes
+:func:`finish_case` reads what the excitations left in ``excite_<p>/`` of the case's solve folder (see
+:mod:`.run` and :mod:`bodysweep.workflow.store`) and writes, in the case folder,
 
 ``sparams.s2p`` (``.s1p`` for a one-port scene or when only port 1 was excited)
     the S-matrix over the band, only the entries that were computed (Touchstone, through :func:`bodysweep.workflow.post.sparams.write_touchstone`);
@@ -48,8 +49,11 @@ def _finite_or_none(v) -> float | None:
     return v if math.isfinite(v) else None
 
 
-def read_excitation(exc_dir) -> dict:
+def read_excitation(exc_dir, f_band_Hz=None) -> dict:
     """Port phasors of one excitation from its ``signals.h5``.
+
+    With ``f_band_Hz`` (nf,) the band phasors are transformed afresh from the stored port time signals
+    at those frequencies (the finish step's own band points); otherwise the stored band is used.
 
     Returns
     -------
@@ -67,8 +71,17 @@ def read_excitation(exc_dir) -> dict:
                "decay_reached": bool(h5.attrs["decay_reached"]), "ports": np.array(numbers)}
         g = [h5[f"port{n}"] for n in numbers]
         out["z0_ohm"] = np.array([float(x.attrs["impedance_ohm"]) for x in g])
-        out["V_band"] = np.array([x["V_band"][()] for x in g])
-        out["I_band"] = np.array([x["I_band"][()] for x in g])
+        if f_band_Hz is None:
+            out["V_band"] = np.array([x["V_band"][()] for x in g])
+            out["I_band"] = np.array([x["I_band"][()] for x in g])
+        else:
+            from .ports import signals2phasors
+
+            pairs = [signals2phasors(x["t_voltage_s"][()], x["voltage_V"][()], x["t_current_s"][()],
+                                     x["current_A"][()], f_band_Hz) for x in g]
+            out["f_band_Hz"] = np.asarray(f_band_Hz, float)
+            out["V_band"] = np.array([v for v, _ in pairs])
+            out["I_band"] = np.array([i for _, i in pairs])
         out["V_f0"] = np.array([complex(x.attrs["V_f0"]) for x in g])
         out["I_f0"] = np.array([complex(x.attrs["I_f0"]) for x in g])
     return out
@@ -202,7 +215,7 @@ def _versions() -> dict:
     return {"builder": BUILDER_VERSION, "adapter": ADAPTER_VERSION, "post": POST_VERSION, **engine_versions()}
 
 
-def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:
+def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:  # case_dir: the solve folder
     """The engine's own averaged SAR peaks (if it was run) beside ours, per W accepted at port 1.
 
     ``ours`` maps mass (kg) to our peak of the same voxel-grid procedure (W/kg per W), not the flush-cube
@@ -236,13 +249,17 @@ def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:
     return out
 
 
-def finish_case(case_dir) -> dict:
+def finish_case(case_dir, solve_dir=None) -> dict:
     """S-matrix, SAR and link budget of a case; writes ``sparams.s2p``, ``result.h5``, ``metrics.json``.
 
     Parameters
     ----------
     case_dir : path-like
-        Case folder with ``case.json`` and the ``excite_<p>/`` folders of the excitations.
+        Case folder with ``case.json`` (its post-processing settings: SAR masses, limits,
+        ``max_air_fraction``, ``solver.n_band_points``).
+    solve_dir : path-like, optional
+        Folder with ``scene.json`` and the ``excite_<p>/`` folders of the excitations (the case's solve
+        in the store); default ``case_dir``.
 
     Returns
     -------
@@ -259,6 +276,7 @@ def finish_case(case_dir) -> dict:
     from .settings import settings_from_dict
 
     case_dir = Path(case_dir)
+    solve_dir = Path(solve_dir) if solve_dir is not None else case_dir
     case = _read_json(case_dir / "case.json")
     f0 = float(case["frequency_Hz"])
     settings = settings_from_dict(case.get("solver") or {})
@@ -268,7 +286,9 @@ def finish_case(case_dir) -> dict:
     exc_ports = list(settings.excite_ports)
     statuses = {}
     for p in exc_ports:
-        sp = case_dir / f"excite_{p}" / "status.json"
+        sp = solve_dir / f"excite_{p}" / "status.json"
+        if not sp.exists():  # removed a moment ago by another study's rerun of the solve job: the kept copy
+            sp = solve_dir / f"excite_{p}" / "outcome.json"
         statuses[p] = _read_json(sp) if sp.exists() else {"status": "failed", "reason": f"excite_{p}/status.json missing"}
     runtime = sum(float(s.get("runtime_s") or 0.0) for s in statuses.values())
     bad = [p for p, s in statuses.items() if s.get("status") != "ok"]
@@ -279,7 +299,7 @@ def finish_case(case_dir) -> dict:
         write_json(case_dir / "metrics.json", out)
         return out
 
-    exc = [read_excitation(case_dir / f"excite_{p}") for p in exc_ports]
+    exc = [read_excitation(solve_dir / f"excite_{p}", settings.band_frequencies_Hz(f0)) for p in exc_ports]
     f_band = exc[0]["f_band_Hz"]
     S_band = smatrix_from_excitations(exc, "band")
     S0 = smatrix_from_excitations(exc, "f0")[0]
@@ -324,7 +344,7 @@ def finish_case(case_dir) -> dict:
     if e1 is not None:
         i1 = int(np.nonzero(e1["ports"] == 1)[0][0])
         p_acc = float(sparams.accepted_power(e1["V_f0"][i1], e1["I_f0"][i1]))
-        raw = read_raw_fields(case_dir / "excite_1" / "fields_raw.h5")
+        raw = read_raw_fields(solve_dir / "excite_1" / "fields_raw.h5")
         sp = sar_per_watt(raw, p_acc)
         edges = (raw["x_edges_m"], raw["y_edges_m"], raw["z_edges_m"])
         volumes["local"] = sp["local"]
@@ -342,7 +362,7 @@ def finish_case(case_dir) -> dict:
         metrics["accepted_power_port1_W"] = p_acc
         metrics["absorbed_fraction_tissue"] = sp["absorbed_tissue_W_per_W"]
         metrics["absorbed_fraction_all"] = sp["absorbed_all_W_per_W"]
-        metrics["solver_sar"] = _solver_sar_comparison(case_dir, grid_peaks, p_acc)
+        metrics["solver_sar"] = _solver_sar_comparison(solve_dir, grid_peaks, p_acc)
     metrics["sar"] = sar_rows
     metrics["limits"] = link_budget_rows(sar_cfg.get("limits", []), peaks, S0)
     from bodysweep.workflow.post.portfigures import STRONG_COUPLING, port_figures
@@ -376,10 +396,11 @@ def finish_case(case_dir) -> dict:
         metrics["status"] = "warning"
 
     versions = _versions()
-    scene_file = case_dir / "scene.json"
+    scene_file = solve_dir / "scene.json"
     with atomic_path(case_dir / "result.h5") as tmp:
         with h5py.File(tmp, "w") as h5:
             h5.attrs["case_id"] = str(case.get("case_id"))
+            h5.attrs["solve_id"] = str(case.get("solve_id"))
             h5.attrs["scene"] = scene_file.read_text() if scene_file.exists() else json.dumps(case.get("scene"))
             h5.attrs["settings"] = json.dumps(settings.to_dict())
             h5.attrs["versions"] = json.dumps(versions)

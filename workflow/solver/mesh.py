@@ -33,7 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from bodysweep.geometry.model import SceneModel
-from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Wire
+from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Polyhedron, Wire
 
 from .mesh_fill import (_GRADING_SLOPE_FRACTION, _GapEnvelope, _axis_lines, _graded_split,  # noqa: F401
                         _integral, _sample_count, _samples, _short_gap_cells, cells_needed, equidistribute,
@@ -446,6 +446,29 @@ def smallest_feature(model: SceneModel) -> float:
     return float(min(sizes)) if sizes else np.inf
 
 
+def check_solids_resolved(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> None:
+    """Refuse a mesh on which a polyhedron (a CAD part) is thinner than one cell along some axis.
+
+    Such a part would fall between the mesh lines and vanish or be filled by chance. The part must span
+    at least one cell: two mesh lines within its extent along every axis.
+    """
+    for p in model.primitives:
+        if not isinstance(p, Polyhedron):
+            continue
+        lo, hi = p.bounds()
+        for i, a in enumerate(AXES):
+            ln = plan.lines(i)
+            tol = 1e-9 * max(1.0, abs(hi[i]) + abs(lo[i]))
+            inside = np.count_nonzero((ln >= lo[i] - tol) & (ln <= hi[i] + tol))
+            if inside < 2:
+                j = int(np.clip(np.searchsorted(ln, lo[i]), 1, len(ln) - 1))
+                cell = ln[j] - ln[j - 1]
+                now = "derived" if settings.min_cell_m is None else f"{settings.min_cell_m*1e3:g} mm"
+                raise MeshRefused(f"{p.name}: the part is {(hi[i] - lo[i])*1e3:.4g} mm thick along {a}, thinner "
+                                  f"than the {cell*1e3:.4g} mm cell there; lower min_cell_mm (now {now}) or "
+                                  "thicken the part")
+
+
 def check_mesh(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> None:
     """Refuse a mesh that cannot be right for this scene.
 
@@ -458,6 +481,7 @@ def check_mesh(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> N
     MeshRefused
         Naming the axis and the line positions in millimetres.
     """
+    check_solids_resolved(plan, model, settings)
     feature = smallest_feature(model)
     limit = SLIVER_FRACTION * feature
     for i, a in enumerate(AXES):

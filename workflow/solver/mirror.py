@@ -33,7 +33,7 @@ from dataclasses import replace
 import numpy as np
 
 from bodysweep.geometry.model import SceneModel
-from bodysweep.geometry.primitives import AXES, Box, Cylinder, Polygon, Port, Wire
+from bodysweep.geometry.primitives import AXES, Box, Cylinder, Polygon, Polyhedron, Port, Wire
 
 __all__ = ["check_symmetric", "half_port", "half_boundaries", "mirror_fields", "mirror_primitive"]
 
@@ -69,6 +69,9 @@ def mirror_primitive(prim, axis: str):
         for p in pts:
             p[k] = -p[k]
         return replace(prim, points=tuple(tuple(p) for p in pts))
+    if isinstance(prim, Polyhedron):  # a reflection turns the faces inside out: reverse each one's order
+        return replace(prim, vertices=tuple(_flip_point(p, i) for p in prim.vertices),
+                       faces=tuple((a, c, b) for a, b, c in prim.faces))
     raise ValueError(f"primitive {getattr(prim, 'name', prim)!r}: unsupported kind {type(prim).__name__}")
 
 
@@ -83,6 +86,14 @@ def _signature(prim) -> tuple:
     elif isinstance(prim, Wire):
         pts = [tuple(p) for p in prim.points]
         geo = ("wire", tuple(min(pts, pts[::-1])), float(prim.radius))
+    elif isinstance(prim, Polyhedron):
+        # the same corner points, surface area and volume: a triangulation may differ between a part and
+        # its image (a face's diagonal flips) while the solid is the same, so triangles are not compared
+        v = np.asarray(prim.vertices, dtype=float)
+        tri = v[np.asarray(prim.faces)]
+        area = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1).sum()
+        vol = abs(np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])).sum()) / 6.0
+        geo = ("polyhedron", tuple(sorted(map(tuple, v.tolist()))), float(np.sqrt(area)), float(np.cbrt(vol)))  # lengths
     else:
         pts = [tuple(p) for p in prim.points]
         geo = ("polygon", prim.normal, float(prim.elevation), float(prim.thickness), tuple(sorted(pts)))

@@ -24,7 +24,9 @@ or mesh refused, engine error, energy decay not reached, field energy NaN or gro
 than its excitation pulse (see :mod:`.health`), NaN in the port signals, child crash or timeout)
 gives a ``failed`` status with the reason and does not raise.
 
-Inputs read from the case folder: ``case.json`` (``frequency_Hz``, ``solver``, ``sar``, ``scene``),
+Inputs read from the folder (a solve folder of the store, or a case folder): ``solve.json`` if present,
+else ``case.json`` (``frequency_Hz``, ``solver``, ``scene``; the averaging masses of the engine's own SAR
+from ``engine_sar_masses_kg``, or ``sar.masses_kg`` of a ``case.json``),
 ``scene.json`` when present (the built scene; else the scene is built from ``case.json``), and an
 optional ``mesh_plan.json`` (``lines_x``, ``lines_y``, ``lines_z``, ``interior_bounds``, metres)
 that replaces the automatic mesh (hand meshes, tests).
@@ -76,6 +78,21 @@ def _atomic(path: Path):
     return atomic_path(path)
 
 
+def _inputs_name(case_dir) -> str:
+    return "solve.json" if (Path(case_dir) / "solve.json").exists() else "case.json"
+
+
+def _inputs(case_dir) -> dict:
+    """The folder's inputs: ``solve.json`` (a solve of the store) or ``case.json`` (a case folder)."""
+    return json.loads((Path(case_dir) / _inputs_name(case_dir)).read_text())
+
+
+def _engine_sar_masses(case: dict) -> list:
+    if case.get("engine_sar_masses_kg") is not None:
+        return list(case["engine_sar_masses_kg"])
+    return (case.get("sar") or {}).get("masses_kg", [0.001, 0.01])
+
+
 def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
     """Read a case folder into ``(case, model, settings, plan)`` (no engine needed).
 
@@ -89,10 +106,10 @@ def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
     from .settings import settings_from_dict
 
     case_dir = Path(case_dir)
-    case = json.loads((case_dir / "case.json").read_text())
+    case = _inputs(case_dir)
     f0 = float(case["frequency_Hz"])
     if not (np.isfinite(f0) and f0 > 0):
-        raise ValueError(f"case.json frequency_Hz must be a positive number, got {case['frequency_Hz']!r}")
+        raise ValueError(f"{_inputs_name(case_dir)} frequency_Hz must be a positive number, got {case['frequency_Hz']!r}")
     settings = settings_from_dict(case.get("solver") or {})
     scene_file = case_dir / "scene.json"
     if scene_file.exists():
@@ -152,7 +169,7 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
             dump = csx.AddDump(SAR_DUMP_NAME, dump_type=29, file_type=1, frequency=[f0])
             dump.AddBox(list(lo), list(hi))
         if mode == "solver_sar":
-            masses = (case.get("sar") or {}).get("masses_kg", [0.001, 0.01])
+            masses = _engine_sar_masses(case)
             for m in masses:
                 dt = {0.001: 21, 0.01: 22}.get(round(float(m), 6))
                 if dt is None:
@@ -278,7 +295,7 @@ def _wants_engine_sar(case_dir: Path) -> bool:
     try:
         from .settings import settings_from_dict
 
-        return bool(settings_from_dict(json.loads((case_dir / "case.json").read_text()).get("solver") or {})
+        return bool(settings_from_dict(_inputs(case_dir).get("solver") or {})
                     .engine_sar_average)
     except Exception:
         return False
@@ -288,7 +305,7 @@ def _settings_threads(case_dir: Path) -> int:
     try:
         from .settings import settings_from_dict
 
-        return int(settings_from_dict(json.loads((case_dir / "case.json").read_text()).get("solver") or {}).threads)
+        return int(settings_from_dict(_inputs(case_dir).get("solver") or {}).threads)
     except Exception:
         return 0
 
@@ -356,7 +373,7 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
         if reason is None and not info["finished"]:
             reason = "engine log has no closing summary; the run did not finish"
         if reason is None:
-            case = json.loads((case_dir / "case.json").read_text())
+            case = _inputs(case_dir)
             from .settings import settings_from_dict
 
             settings = settings_from_dict(case.get("solver") or {})
@@ -486,8 +503,8 @@ def solve_solver_sar(case_dir, threads: int | None = None, timeout_s: float | No
     status: dict = {"status": "failed", "reason": None, "by_mass": {}}
     log_text = ""
     try:
-        case = json.loads((case_dir / "case.json").read_text())
-        masses = [float(m) for m in (case.get("sar") or {}).get("masses_kg", [0.001, 0.01])]
+        case = _inputs(case_dir)
+        masses = [float(m) for m in _engine_sar_masses(case)]
         offered = {m: SOLVER_SAR_NAMES[round(m, 6)] for m in masses if round(m, 6) in SOLVER_SAR_NAMES}
         for m in masses:
             if m not in offered:

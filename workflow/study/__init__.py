@@ -50,15 +50,20 @@ through ``settings_from_dict``.
 
 Identity
 --------
-``case_id`` is the first 12 hex digits of the sha256 of the canonical JSON (sorted keys, no
-whitespace, numbers as floats rounded to 15 significant digits and written by ``repr``) of the resolved
-scene (SI), frequency, solver settings, SAR settings, excited ports and the code versions
-(``BUILDER_VERSION``, ``ADAPTER_VERSION``, ``POST_VERSION``). The study name and label are not part of it.
+Two identities, each the first 12 hex digits of the sha256 of a canonical JSON (sorted keys, no
+whitespace, numbers as floats rounded to 15 significant digits and written by ``repr``):
+``solve_id`` over what decides the fields (resolved scene in SI, frequency, solver settings but
+``threads`` and ``n_band_points``, excited ports, ``BUILDER_VERSION``, ``ADAPTER_VERSION``; the SAR
+masses too with ``solver.engine_sar_average``), and ``case_id`` (the finish identity) over the
+``solve_id`` plus the post-processing settings (SAR masses, limits, ``max_air_fraction``,
+``n_band_points``, ``POST_VERSION``). The study name and label are part of neither.
 """
-from .cases import Case, case_label, count_cases, expand, identity_content, sar2si
+from .cases import (Case, case_identities, case_label, count_cases, expand, identity_content, sar2si,
+                    solve_content)
 from .errors import StudyError
 from .identity import canonical_json, code_versions, content2case_id
 from .study import DEFAULT_MAX_CASES, Study, load_study
 
 __all__ = ["load_study", "expand", "StudyError", "Study", "Case", "count_cases", "canonical_json",
-           "content2case_id", "code_versions", "case_label", "identity_content", "sar2si", "DEFAULT_MAX_CASES"]
+           "content2case_id", "code_versions", "case_label", "identity_content", "sar2si", "DEFAULT_MAX_CASES",
+           "case_identities", "solve_content"]

@@ -17,7 +17,7 @@ from .expressions import evaluate
 from .identity import CASE_ID_LENGTH, _normalise, canonical_json, code_versions
 from .paths import has_path, parent_exists, path2parts, set_path
 from .schema import CaseSceneChecker
-from .study import Study, base_value, declared_solver_key
+from .study import Study, absolute_cad_files, base_value, declared_solver_key, study_folder
 
 
 _PLAIN = (str, int, float, bool, type(None))
@@ -58,8 +58,9 @@ class Case:
     Attributes
     ----------
     case_id : str
-        12 hex characters: sha256 of the canonical resolved content (scene, frequency, solver, SAR,
-        excited ports, code versions); independent of the study name and label.
+        12 hex characters, the finish identity: sha256 of the solve id plus the post-processing settings
+        (SAR masses and limits, ``max_air_fraction``, ``n_band_points``, post version); independent of
+        the study name and label.
     label : str
         Human readable, e.g. ``"f=403MHz depth=10mm ext=loop"``.
     study : str
@@ -77,6 +78,9 @@ class Case:
     excite_ports : tuple of int
     versions : dict
         ``builder``, ``adapter``, ``post``.
+    solve_id : str
+        12 hex characters, the solve identity: sha256 of what decides the fields (:func:`solve_content`);
+        names the stored solve shared by every case and study with the same fields.
     """
 
     case_id: str
@@ -89,16 +93,21 @@ class Case:
     sar: dict = field(default_factory=dict, repr=False)
     excite_ports: tuple[int, ...] = (1,)
     versions: dict = field(default_factory=dict, repr=False)
+    solve_id: str = ""
 
     def identity_content(self) -> dict:
-        """The content the case id is the hash of."""
+        """The content the case id (finish identity) is the hash of."""
         return identity_content(self.scene, self.frequency_Hz, self.solver, self.sar, self.excite_ports,
                                 self.versions)
+
+    def solve_content(self) -> dict:
+        """The content the solve id is the hash of."""
+        return solve_content(self.scene, self.frequency_Hz, self.solver, self.sar, self.excite_ports, self.versions)
 
     def to_dict(self) -> dict:
         """The ``case.json`` content (plain JSON-ready data, a fresh copy)."""
         return plain_copy({
-            "case_id": self.case_id, "label": self.label, "study": self.study, "parameters": self.parameters,
+            "case_id": self.case_id, "solve_id": self.solve_id, "label": self.label, "study": self.study, "parameters": self.parameters,
             "frequency_Hz": self.frequency_Hz, "scene": self.scene, "solver": self.solver, "sar": self.sar,
             "excite_ports": list(self.excite_ports), "versions": self.versions,
         })
@@ -107,6 +116,9 @@ class Case:
 #: solver settings that decide how a case is run, not what it computes: left out of the case identity
 #: (a study rerun with another thread count reuses its finished cases)
 RUN_ONLY_SOLVER_KEYS = ("threads",)
+#: solver settings used only by the finish step (the band's frequency points are taken from the stored
+#: port time signals when the case is finished): part of the finish identity, not of the solve identity
+FINISH_ONLY_SOLVER_KEYS = ("n_band_points",)
 
 
 def solver_identity(solver: dict) -> dict:
@@ -114,10 +126,68 @@ def solver_identity(solver: dict) -> dict:
     return {k: v for k, v in solver.items() if k not in RUN_ONLY_SOLVER_KEYS}
 
 
+def scene_identity(scene: dict) -> dict:
+    """The scene as it enters the case identity: a CAD part by its content hash, not by where its file lies.
+
+    Scenes without CAD parts are returned unchanged (the same object).
+    """
+    parts = [k for k in ("external", "implant") if isinstance(scene.get(k), dict) and scene[k].get("type") == "cad"
+             and scene[k].get("sha256")]
+    if not parts:
+        return scene
+    out = dict(scene)
+    for k in parts:
+        out[k] = {n: v for n, v in scene[k].items() if n != "file"}
+    return out
+
+
+def solve_solver_settings(solver: dict) -> dict:
+    """The solver settings that decide the fields: all but the run-only and the finish-only keys."""
+    return {k: v for k, v in solver.items() if k not in RUN_ONLY_SOLVER_KEYS + FINISH_ONLY_SOLVER_KEYS}
+
+
+def solve_content(scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite_ports, versions: dict) -> dict:
+    """What the solve identity is the hash of: everything that decides the stored fields and port signals.
+
+    Scene (SI), frequency, the solver settings but the run-only and finish-only keys, the excited ports,
+    the builder and adapter versions; the averaging masses only when the engine's own averaged SAR is
+    recorded (``solver.engine_sar_average``: the solve step then runs the engine's averaging for them).
+    """
+    out = {"scene": scene_identity(scene), "frequency_Hz": frequency_Hz, "solver": solve_solver_settings(solver),
+           "excite_ports": list(excite_ports),
+           "versions": {k: versions[k] for k in ("builder", "adapter") if k in versions}}
+    if solver.get("engine_sar_average"):
+        out["engine_sar_masses_kg"] = list(sar.get("masses_kg", []))
+    return out
+
+
+def finish_content(solve_id: str, solver: dict, sar: dict, versions: dict) -> dict:
+    """What the case id (the finish identity) is the hash of: the solve id plus the post-processing settings.
+
+    SAR masses, limits (value and source text), ``max_air_fraction``, the finish-only solver keys
+    (``n_band_points``) and the post-processing version.
+    """
+    return {"solve_id": solve_id, "sar": sar,
+            "finish_solver": {k: solver[k] for k in FINISH_ONLY_SOLVER_KEYS if k in solver},
+            "versions": {"post": versions.get("post")}}
+
+
 def identity_content(scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite_ports, versions: dict) -> dict:
-    """The mapping whose canonical JSON hash is the case id."""
-    return {"scene": scene, "frequency_Hz": frequency_Hz, "solver": solver_identity(solver), "sar": sar,
-            "excite_ports": list(excite_ports), "versions": versions}
+    """The mapping whose canonical JSON hash is the case id (:func:`finish_content` of the solve id)."""
+    from .identity import content2case_id
+
+    solve_id = content2case_id(solve_content(scene, frequency_Hz, solver, sar, excite_ports, versions))
+    return finish_content(solve_id, solver, sar, versions)
+
+
+def case_identities(case: dict) -> tuple[str, str]:
+    """``(solve_id, case_id)`` recomputed from a ``case.json`` content."""
+    from .identity import content2case_id
+
+    args = (case["scene"], case["frequency_Hz"], case["solver"], case["sar"], case.get("excite_ports", [1]),
+            case["versions"])
+    solve_id = content2case_id(solve_content(*args))
+    return solve_id, content2case_id(finish_content(solve_id, case["solver"], case["sar"], case["versions"]))
 
 
 def sar2si(sar: dict) -> dict:
@@ -243,9 +313,7 @@ class _Memo:
             self.normal[key] = _normalise(obj, where)
         return self.normal[key]
 
-    def case_id(self, scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite, versions: dict) -> str:
-        """:func:`~.identity.content2case_id` of the identity content, constant parts normalised once."""
-        content = identity_content(scene, frequency_Hz, solver, sar, excite, versions)
+    def _hash(self, content: dict) -> str:
         normal = {}
         for k, v in content.items():  # in content order, so a refused value is named as before
             if k == "frequency_Hz":
@@ -256,6 +324,12 @@ class _Memo:
                 normal[k] = self.normalised(v, k)
         text = json.dumps(normal, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:CASE_ID_LENGTH]
+
+    def case_ids(self, scene: dict, frequency_Hz: float, solver: dict, sar: dict, excite, versions: dict) -> tuple[str, str]:
+        """``(solve_id, case_id)``: :func:`~.identity.content2case_id` of :func:`solve_content` and of
+        :func:`finish_content`, constant parts normalised once."""
+        solve_id = self._hash(solve_content(scene, frequency_Hz, solver, sar, excite, versions))
+        return solve_id, self._hash(finish_content(solve_id, solver, sar, versions))
 
 
 def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
@@ -281,6 +355,7 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     scene_resolve = _resolver(Scene.from_dict) if check_scene else None
     solver_resolve = _resolver(settings_from_dict)
     versions = code_versions()
+    folder = study_folder(study)
     sar = sar2si(study.raw["sar"])
     excite = tuple(study.excite_ports)
     names = tuple(n for b in study.blocks for n in b.names)
@@ -299,6 +374,7 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             items = [(n, v, study.parameters[n].unit) for n, v in zip(names, row)]
             label = case_label(f_MHz, items)
             doc, parameters = _apply(study, names, row, f_MHz, label)
+            absolute_cad_files(doc["scene"], folder)  # a sweep option may bring its own relative file
             memo.check_edge_values(doc, f"in case {label}")
             if varies and check_scene:
                 checker.check(doc["scene"], f"in case {label}")
@@ -334,13 +410,13 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             if 2 in excite and not scene_si.get("implant"):
                 raise StudyError("excite", f"port 2 is the implant antenna's feed, but case {label} has no implant",
                                  list(excite), "[1] for a scene without implant")
-            case_id = memo.case_id(scene_si, f_Hz, solver_si, sar, excite, versions)
+            solve_id, case_id = memo.case_ids(scene_si, f_Hz, solver_si, sar, excite, versions)
             if case_id in seen:
                 continue
             seen.add(case_id)
             cases.append(Case(case_id=case_id, label=label, study=study.name, parameters=parameters,
                               frequency_Hz=f_Hz, scene=scene_si, solver=solver_si, sar=plain_copy(sar),
-                              excite_ports=excite, versions=dict(versions)))
+                              excite_ports=excite, versions=dict(versions), solve_id=solve_id))
     return cases
 
 

@@ -346,6 +346,22 @@ def _baseline_checks(raw: dict, blocks: tuple[Block, ...]) -> None:
                              ", ".join(dict.fromkeys(str(t) for t in taken)))
 
 
+def study_folder(study_or_source) -> Path:
+    """Folder that relative file names in a study are read from: the study file's, else the working folder."""
+    src = getattr(study_or_source, "source", study_or_source)
+    src = str(src)
+    return Path(src).resolve().parent if src and not src.startswith("<") else Path.cwd()
+
+
+def absolute_cad_files(scene: dict, folder: Path) -> None:
+    """Make the ``file`` of every CAD part of an edge-unit scene absolute, a relative one read from ``folder``."""
+    for part in ("external", "implant"):
+        d = scene.get(part) if isinstance(scene, dict) else None
+        if isinstance(d, dict) and d.get("type") == "cad" and isinstance(d.get("file"), str) and d["file"]:
+            p = Path(d["file"]).expanduser()
+            d["file"] = str(p if p.is_absolute() else (folder / p).resolve())
+
+
 def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None = None) -> Study:
     """Parse (safely), validate and resolve a study.
 
@@ -383,6 +399,7 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
     check_finite(data)
     validate_study_data(data)
     raw = _fill_defaults(data)
+    absolute_cad_files(raw.get("scene") or {}, study_folder(origin))
     name = raw["study"]
     if name in (".", "..") or "/" in name or "\\" in name:  # the schema pattern already refuses these
         raise StudyError("study", "not a plain folder name", name, "letters, digits, '-' and '_'")

@@ -85,8 +85,7 @@ def variant(case: dict, component: str, cfg: dict) -> dict:
     """The case dict of one component run of ``case`` (a fresh dict with its own ``case_id``)."""
     from bodysweep.workflow.solver.settings import settings_from_dict
 
-    from .cases import identity_content
-    from .identity import content2case_id
+    from .cases import case_identities
 
     scene, solver = copy.deepcopy(case["scene"]), copy.deepcopy(case["solver"])
     f = float(case["frequency_Hz"])
@@ -108,8 +107,7 @@ def variant(case: dict, component: str, cfg: dict) -> dict:
     solver = settings_from_dict(solver).to_dict() | {"excite_ports": list(case["excite_ports"])}
     out = copy.deepcopy(case)
     out.update(scene=scene, solver=solver)
-    out["case_id"] = content2case_id(identity_content(scene, f, solver, case["sar"], case["excite_ports"],
-                                                      case["versions"]))
+    out["solve_id"], out["case_id"] = case_identities(out)  # its own solve and finish identities
     out["label"] = f"{case.get('label', '')} [{component} run for {case['case_id']}]"
     out["parameters"] = {**case.get("parameters", {}), "uncertainty_run": component}
     out["budget"] = [{"of": case["case_id"], "component": component}]
