@@ -8,6 +8,7 @@ bodysweep preview STUDY CASE   the three-plane preview PNG of one case
 bodysweep report  STUDY        plots and report.md from the tables
 bodysweep verify  STUDY        integrity of case folders, the study's solves in the store, and tables
 bodysweep solves                 list the shared store of solves; --remove-unused removes those no study uses
+bodysweep explore STUDY        guided search (the study's explore section) in rounds of ordinary cases
 
 Exit codes: 0 success; 2 the study file (or a case's geometry) is not usable, nothing written;
 3 some cases failed (run) or integrity problems (verify); 4 refused: the estimated cost is over the
@@ -563,6 +564,9 @@ def build_parser() -> argparse.ArgumentParser:
     store_option(p)
     p.add_argument("--remove-unused", action="store_true", help="remove the solves no study refers to")
     p.set_defaults(func=cmd_solves)
+    from .explore.command import add_explore_command
+
+    add_explore_command(add, budget)
     return ap
 
 

@@ -14,7 +14,7 @@ CORPUS = Path(__file__).parents[1] / "study" / "bad_inputs"
 EXPECTED: dict[str, str] = yaml.safe_load((CORPUS / "expected.yaml").read_text(encoding="utf-8"))
 
 
-@pytest.mark.parametrize("command", ["check", "plan", "run"])
+@pytest.mark.parametrize("command", ["check", "plan", "run", "explore"])
 def test_every_corpus_file_exits_2_with_one_line(tmp_path, monkeypatch, capsys, command):
     monkeypatch.chdir(tmp_path)
     wrong = []

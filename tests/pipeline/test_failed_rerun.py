@@ -13,23 +13,24 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from helpers_reliability import (fingerprint, group_alive, kill_group, plan_ids, run, start_run, tiny_study,
+from helpers_reliability import (fingerprint, kill_group, plan_ids, run, start_run, tiny_study,
                                  wait_for)
 
 pytestmark = [pytest.mark.pipeline, pytest.mark.solver, pytest.mark.timeout(600)]
 
 
-def _engine_child(pgid: int, root: Path):
-    """``(pid, case_id)`` of a running engine child process in the group, else None.
+def _engine_child(root: Path):
+    """``(pid, case_id)`` of a running engine child process working below ``root``'s results folder, else None.
 
     The engine runs in the case's solve folder of the store (``_solves/<solve_id>``); plan.json names
-    the case of that solve."""
-    for pid in group_alive(pgid):
+    the case of that solve. Processes are looked up by their command line (bodysweep runs Snakemake in a
+    session of its own, so the run's process group does not hold them)."""
+    for pid in [int(d.name) for d in Path("/proc").iterdir() if d.name.isdigit()]:
         try:
             args = [a.decode() for a in Path(f"/proc/{pid}/cmdline").read_bytes().split(b"\0") if a]
         except OSError:
             continue
-        if "bodysweep.workflow.solver.run" in args and "child" in args:
+        if "bodysweep.workflow.solver.run" in args and "child" in args and any(str(root.parent) in a for a in args):
             for a in args:
                 p = Path(a)
                 if p.parent.name == "cases" and len(p.name) == 12:
@@ -47,7 +48,7 @@ def test_killed_engine_fails_its_case_only_and_retry_reruns_only_it(tmp_path):
     root = tmp_path / "results" / "tiny_retry"
     proc = start_run(study, tmp_path, "--cores", "2")
     try:
-        pid, bad = wait_for(lambda: _engine_child(os.getpgid(proc.pid), root), 240, "an engine process", proc=proc)
+        pid, bad = wait_for(lambda: _engine_child(root), 240, "an engine process", proc=proc)
         os.kill(pid, signal.SIGKILL)  # the engine of one case dies; the pipeline itself goes on
         out, err = proc.communicate(timeout=400)
     finally:

@@ -47,7 +47,10 @@ def test_every_default_is_valid_for_its_own_key():
 
 def test_unit_keys_name_their_unit():
     # numeric keys holding a physical quantity carry the unit in their name (DEVELOPERS.md, units)
-    dimensionless = {"max_air_fraction", "max_cases", "seed", "count", "decimals"}
+    dimensionless = {"max_air_fraction", "max_cases", "seed", "count", "decimals",
+                     # explore: counts and factors; range/step/at_most/at_least take the unit of their path or column
+                     "budget_cases", "batch", "patience_rounds", "best", "density_factor", "range", "step",
+                     "at_most", "at_least"}
     for p, sub in _walk_properties(study_schema()):
         name = p.rsplit(".", 1)[-1]
         types = sub.get("type", [])

@@ -113,15 +113,30 @@ def test_choice_replaces_a_whole_subtree_and_nested_path_follows_it():
     assert c.label.startswith("f=403MHz ext=loop rods=two standoff=")
 
 
-def test_path_only_in_one_option_fails_for_the_other_with_the_case_label():
+def test_path_only_in_one_option_is_conditional_and_left_out_for_the_other():
+    # a numeric parameter inside one named option applies only where that option is chosen
     loop = {"type": "loop", "radius_mm": 12, "feed_gap_mm": 1, "standoff_mm": 3}
     params = {"ext": {"path": "scene.external", "options": {"dipole": _minimal()["scene"]["external"], "loop": loop}},
               "r": "scene.external.radius_mm"}
-    study = load_study(_study(params, [{"grid": {"ext": ["loop", "dipole"]}}, {"grid": {"r": [10, 12]}}]))
-    with pytest.raises(StudyError) as info:
-        expand(study, check_scene=False)
-    assert info.value.key_path == "sweep.parameters.r"
-    assert "f=403MHz ext=dipole r=10mm" in str(info.value)
+    cases = expand(load_study(_study(params, [{"grid": {"ext": ["loop", "dipole"]}}, {"grid": {"r": [10, 12]}}])),
+                   check_scene=False)
+    # 2 x 2 rows; the two dipole rows differ only in r, which the dipole does not have: one case
+    assert [c.label for c in cases] == ["f=403MHz ext=loop r=10mm", "f=403MHz ext=loop r=12mm", "f=403MHz ext=dipole"]
+    assert [c.parameters["scene.external.radius_mm"] for c in cases] == [10, 12, None]
+    assert "radius_m" not in cases[2].scene["external"]
+
+
+def test_choice_not_varied_keeps_the_base_and_its_parameter_applies_everywhere():
+    loop = {"type": "loop", "shape": "circular", "radius_mm": 12, "trace_width_mm": 1.5, "feed_gap_mm": 1,
+            "turns": 1, "normal": "z", "position_mm": [0, 0], "standoff_mm": 3, "conductor": "pec"}
+    d = _minimal()
+    d["scene"]["external"] = loop
+    params = {"ext": {"path": "scene.external", "options": {"dipole": _minimal()["scene"]["external"], "loop": loop}},
+              "r": "scene.external.radius_mm"}
+    # the choice is declared but not varied: every case keeps the base (a loop), r applies everywhere
+    d["sweep"] = {"parameters": params, "blocks": [{"grid": {"r": [10, 12]}}]}
+    cases = expand(load_study(d), check_scene=False)
+    assert [c.parameters["scene.external.radius_mm"] for c in cases] == [10, 12]
 
 
 def test_derived_values_use_parameters_frequency_and_earlier_derived():
@@ -252,3 +267,25 @@ def test_derived_count_stays_a_whole_number():
     with pytest.raises(StudyError) as info:
         expand(load_study(d))
     assert info.value.key_path == "derived.pc.expr" and "whole number" in str(info.value)
+
+
+def test_conditional_parameter_column_is_numeric_and_empty_where_the_option_lacks_it(tmp_path):
+    # the summary table gets one numeric column per conditional parameter, NaN where it does not apply
+    from bodysweep.workflow.collect import collect_frames
+    from bodysweep.workflow.layout import StudyLayout
+    from bodysweep.workflow.pipeline import plan_entry
+
+    rod = {"type": "rod_pair", "anchor": "implant", "offset_mm": [0, 0, 4.5], "azimuth_deg": 0,
+           "rod_length_mm": 8, "gap_mm": 2, "radius_mm": 0.4, "conductor": "pec"}
+    params = {"rods": {"path": "scene.concentrators", "options": {"none": [], "pair": [rod]}},
+              "rod_len": "scene.concentrators.0.rod_length_mm", "rod_z": "scene.concentrators.0.offset_mm.2"}
+    cases = expand(load_study(_study(params, [{"grid": {"rods": ["none", "pair"], "rod_len": [6, 10],
+                                                        "rod_z": [4, 5]}}])))
+    assert len(cases) == 5  # 1 without rods + 2 x 2 with rods (hand count)
+    assert [c.scene["concentrators"][0]["rod_length_m"] for c in cases[1:]] == pytest.approx([6e-3, 6e-3, 10e-3, 10e-3])
+    entries = [plan_entry(c.to_dict()) for c in cases]
+    s = collect_frames(StudyLayout.of("x", tmp_path), entries, band=False)["summary"]
+    col = s["scene.concentrators.0.rod_length_mm"]
+    assert col.dtype.kind == "f"
+    assert np.isnan(col.iloc[0]) and list(col.iloc[1:]) == [6, 6, 10, 10]
+    assert list(s["scene.concentrators"]) == ["none", "pair", "pair", "pair", "pair"]

@@ -242,12 +242,18 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
             raise StudyError(join_path("sweep.parameters", n, "path"), f"in case {label}: the parent of {p.path!r} "
                              "does not exist", p.path, "a path whose parent exists in every case")
         set_path(doc, p.path, plain_copy(p.options[values[n]]))
+    inactive: list[str] = []
     for n in names:
         p = params[n]
         if p.is_choice:
             parameters[p.path] = values[n]
             continue
         if not has_path(doc, p.path) and not declared_solver_key(p.path):
+            if any(params[c].path != p.path and p.path.startswith(params[c].path + ".") for c in choices):
+                # a conditional parameter: it lives inside an option this case did not choose
+                parameters[p.path] = None
+                inactive.append(n)
+                continue
             raise StudyError(join_path("sweep.parameters", n), f"in case {label}: path {p.path!r} does not exist "
                              "(the chosen options do not have it)", p.path, "a path present in every case")
         set_path(doc, p.path, values[n])
@@ -279,7 +285,7 @@ def _apply(study: Study, names: tuple[str, ...], row: tuple[Any, ...], freq_MHz:
         set_path(doc, d.path, value)
         parameters[d.path] = value
         env[d.name] = value
-    return doc, parameters
+    return doc, parameters, inactive
 
 
 class _Memo:
@@ -367,14 +373,23 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     resolved: dict[str, dict] = {}  # canonical SI scene -> builder-resolved scene (frequency-independent)
     varies = bool(study.blocks or study.derived)  # otherwise the base scene was validated at load time
     memo = _Memo()
+    conditional = conditional_names(study)
+    applies: dict[str, bool] = {}  # conditional parameter -> applies in at least one case
     fresh: set[str] = set()  # resolved scenes not yet handed to a case (no copy needed the first time)
     for f_Hz in study.frequencies_Hz:
         f_MHz = f_Hz / 1e6
         for row in combos:
             items = [(n, v, study.parameters[n].unit) for n, v in zip(names, row)]
             label = case_label(f_MHz, items)
-            doc, parameters = _apply(study, names, row, f_MHz, label)
+            doc, parameters, inactive = _apply(study, names, row, f_MHz, label)
             absolute_cad_files(doc["scene"], folder)  # a sweep option may bring its own relative file
+            if inactive:  # conditional parameters the chosen option does not have: not part of the case
+                label = case_label(f_MHz, [it for it in items if it[0] not in inactive])
+                for n in inactive:
+                    applies.setdefault(n, False)
+            for n in conditional:
+                if n not in inactive:
+                    applies[n] = True
             memo.check_edge_values(doc, f"in case {label}")
             if varies and check_scene:
                 checker.check(doc["scene"], f"in case {label}")
@@ -417,7 +432,21 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
             cases.append(Case(case_id=case_id, label=label, study=study.name, parameters=parameters,
                               frequency_Hz=f_Hz, scene=scene_si, solver=solver_si, sar=plain_copy(sar),
                               excite_ports=excite, versions=dict(versions), solve_id=solve_id))
+    never = [n for n in conditional if not applies.get(n, False)]
+    if never:
+        p = study.parameters[never[0]]
+        raise StudyError(join_path("sweep.parameters", never[0]), f"path {p.path!r} is in no option any case "
+                         "chooses, so the parameter never applies", p.path,
+                         "a path inside an option that some case chooses")
     return cases
+
+
+def conditional_names(study: Study) -> tuple[str, ...]:
+    """Swept numeric parameters whose path lies inside a swept choice (they apply where the option has them)."""
+    swept = study.swept_names()
+    choices = [study.parameters[n].path for n in swept if study.parameters[n].is_choice]
+    return tuple(n for n in swept if not study.parameters[n].is_choice
+                 and any(study.parameters[n].path.startswith(c + ".") for c in choices))
 
 
 def count_cases(study: Study) -> int:

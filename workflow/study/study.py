@@ -414,5 +414,9 @@ def load_study(source: str | Path | Mapping[str, Any], *, max_cases: int | None 
     blocks = _blocks(raw, params, base, len(freqs), limit)
     derived = _derived(raw, params, base, {n for b in blocks for n in b.names})
     _baseline_checks(raw, blocks)
+    from .exploration import parse_search  # checks the explore section (the search reads it again)
+
+    parse_search(raw, params, {n for b in blocks for n in b.names}, {d.path for d in derived}, len(freqs),
+                 math.prod(len(b) for b in blocks))
     return Study(name=name, frequencies_Hz=freqs, raw=raw, parameters=params, blocks=blocks, derived=derived,
                  excite_ports=excite, max_cases=limit, source=origin)

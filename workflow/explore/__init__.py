@@ -1,0 +1,1 @@
+"""Guided design search: rounds of proposals run as ordinary cases (see driver, pipeline, command)."""
