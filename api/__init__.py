@@ -3,7 +3,7 @@
 For analysis scripts (README, "Results in Python")::
 
     import bodysweep
-    tables = bodysweep.load_tables("studies/my_study.yaml")               # summary, sparams, sar
+    tables = bodysweep.load_tables("studies/my_study.yaml")               # summary, sparams, sar, uncertainty
     vol = bodysweep.load_sar_volume("studies/my_study.yaml", 0, mass_g=10)
     study = bodysweep.open_study("results/my_study")                     # both, and the case list
 

@@ -163,6 +163,11 @@ class Scene:
             if dmin < self.min_clearance_m:
                 raise ValueError(f"{name} is {dmin * 1e3:.3g} mm from the implant; the minimum clearance is "
                                  f"{self.min_clearance_m * 1e3:.3g} mm (min_clearance_mm)")
+        from .arrangement import arrangement_errors
+
+        errors = arrangement_errors(self, anchors)
+        if errors:
+            raise ValueError(errors[0])
 
     # ------------------------------------------------------------------ build
     def build(self, frequency_Hz: float) -> SceneModel:

@@ -88,7 +88,7 @@ class StudyResults:
         return self.layout.root
 
     def tables(self) -> dict[str, "pd.DataFrame"]:  # noqa: F821 (pandas imported when called)
-        """``{"summary": ..., "sparams": ..., "sar": ...}`` as pandas DataFrames (the Parquet files)."""
+        """``{"summary": ..., "sparams": ..., "sar": ..., "uncertainty": ...}`` as pandas DataFrames (the Parquet files)."""
         import pandas as pd
 
         missing = [n for n in TABLE_NAMES if not (self.layout.tables_dir / f"{n}.parquet").exists()]

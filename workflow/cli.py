@@ -79,6 +79,7 @@ def _check_geometry(dicts: list[dict]) -> int:
     import json
 
     seen: set[str] = set()
+    notes: dict[str, list[str]] = {}  # arrangement warning -> labels of the cases it concerns
     for d in dicts:
         key = json.dumps([d["scene"], d["frequency_Hz"]], sort_keys=True, default=str)
         if key in seen:
@@ -88,6 +89,7 @@ def _check_geometry(dicts: list[dict]) -> int:
             model = _build_model(d)
         except (ValueError, KeyError, TypeError) as exc:
             raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): geometry: {' '.join(str(exc).split())}") from None
+        _note_arrangement(d, notes)
         plane = (d.get("solver") or {}).get("mirror_plane")
         if plane:  # a half-domain solve needs a mirror-symmetric scene: refuse before any job starts
             from .solver.mirror import check_symmetric
@@ -97,7 +99,21 @@ def _check_geometry(dicts: list[dict]) -> int:
             except ValueError as exc:
                 raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): solver.mirror_plane: "
                                     f"{' '.join(str(exc).split())}") from None
+    for text, labels in notes.items():  # arrangements that may be deliberate: one line each, on stderr
+        more = f" and {len(labels) - 2} more" if len(labels) > 2 else ""
+        print(f"warning: {text} (case {', '.join(labels[:2])}{more})", file=sys.stderr)
     return len(seen)
+
+
+def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
+    """Add the scene's arrangement warnings (:mod:`bodysweep.geometry.arrangement`) to ``notes``."""
+    from bodysweep.geometry.arrangement import arrangement_warnings
+    from bodysweep.geometry.scene import Scene
+
+    for text in arrangement_warnings(Scene.from_dict(case["scene"])):
+        labels = notes.setdefault(text, [])
+        if case.get("label", "") not in labels:
+            labels.append(case.get("label", ""))
 
 
 # -- cost ------------------------------------------------------------------------------------------------
@@ -213,6 +229,11 @@ def cmd_plan(a) -> int:
           + (f" ({changed} changed since the last plan)" if changed else "")
           + f"; to solve: {cells:.0f} cells, CPU time {fmt_cpu(cpu)}, largest memory {fmt_bytes(mem)}, "
           + f"disk {fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
+    from .study.uncertainty import budget_note
+
+    note = budget_note(study.raw, entries, layout)
+    if note:
+        print(note)
     problems = _study_budget_problems(study, rows, a)
     if problems and not a.accept_cost:
         return _refuse_over_budget(problems)
@@ -319,13 +340,24 @@ def _run_locked(a, lock, log: Path) -> int:
                                    pass_fds=lock_fds, cluster=cluster)
             except RunInterrupted as exc:
                 return _interrupted(a, exc, lock, prep, log)
+    if rc == 0:  # an uncertainty budget for the best cases: their runs are known once the cases have results
+        again = prepare(a.study, a.results_dir)
+        added = {e["case_id"] for e in again.entries} - {e["case_id"] for e in prep.entries}
+        if added:
+            print(f"uncertainty budget: {len(added)} component runs for the best cases")
+            prep = again
+            try:
+                rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
+                                   pass_fds=lock_fds, cluster=cluster)
+            except RunInterrupted as exc:
+                return _interrupted(a, exc, lock, prep, log)
     if rc != 0:
         _err(f"the pipeline failed (snakemake exit {rc}); see {log}")
         return EXIT_ERROR
     states = case_states(prep.layout, prep.entries, store=prep.store)
     failed = [(e, why) for e, (s, why) in zip(prep.entries, states) if s == "failed"]
     print(f"done: {len(prep.entries) - len(failed)} of {len(prep.entries)} cases have results")
-    print(f"tables: {prep.layout.tables_dir}/ (summary, sparams, sar as .parquet and .csv)")
+    print(f"tables: {prep.layout.tables_dir}/ (summary, sparams, sar, uncertainty as .parquet and .csv)")
     print(f"report: {prep.layout.report_file}")
     if failed:
         for e, why in failed[:20]:
@@ -517,7 +549,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--skip-failed", action="store_true",
                    help="keep earlier failures as they are (the default; for explicit scripts)")
     budget(p)
-    add("collect", "merge the case results into tables/summary, sparams, sar (.parquet and .csv)", cmd_collect)
+    add("collect", "merge the case results into tables/summary, sparams, sar, uncertainty (.parquet and .csv)", cmd_collect)
     p = add("preview", "write (if needed) and print the path of a case's three-plane preview PNG", cmd_preview)
     p.add_argument("case", help="case id, label, or index in the study's case list")
     p.add_argument("--output", default=None, help="write the PNG here instead of the case folder")

@@ -26,6 +26,7 @@ import pandas as pd
 
 from .atomic import atomic_path
 from .layout import TABLE_NAMES, StudyLayout, read_plan
+from .post.flags import WARNING_SEPARATOR  # between the warnings of one case in the ``warnings`` column
 
 #: columns every summary row has, in this order (parameter and per-limit columns are added)
 SUMMARY_FIXED = ("case_id", "label", "status", "reason", "frequency_MHz", "S11_dB", "S21_dB", "S22_dB")
@@ -37,9 +38,7 @@ IMPLANT_VARIANTS = ("unmatched", "tx_matched", "both_matched")
 LINK_COLUMNS = (("sar_limited_accepted_W", "sar_limited_accepted_dBm", "deciding_limit")
                 + tuple(f"implant_power_{v}_{u}" for v in IMPLANT_VARIANTS for u in ("W", "dBm"))
                 + ("figure_of_merit", "figure_of_merit_value"))
-#: between the warnings of one case in the ``warnings`` column
-WARNING_SEPARATOR = " | "
-SUMMARY_TAIL = ("warnings", "runtime_s", "cells", "timesteps", "decay_reached")
+SUMMARY_TAIL = ("warnings", "runtime_s", "cells", "timesteps", "decay_reached", "energy_balance")
 SPARAMS_FIXED = ("case_id", "frequency_MHz", "i", "j", "re", "im", "mag_dB", "phase_deg")
 SAR_COLUMNS = ("case_id", "frequency_MHz", "mass_g", "peak_W_per_kg_per_W", "peak_from",
                "cube_x_mm", "cube_y_mm", "cube_z_mm", "cube_side_mm", "voxel_x_mm", "voxel_y_mm", "voxel_z_mm",
@@ -266,10 +265,13 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     dict of str to DataFrame
         ``{"summary": ..., "sparams": ..., "sar": ...}``.
     """
+    from .collect_uncertainty import add_budget, split_entries
+
     plan = None
     if entries is None:
         plan = read_plan(layout)
         entries = plan["cases"]
+    entries, budget_runs = split_entries(entries)  # uncertainty component runs: only in the budget
     if merit is None:
         if plan is None and layout.plan_file.exists():
             plan = read_plan(layout)
@@ -346,6 +348,7 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
         row["timesteps"] = _num(m.get("timesteps"))
         dr = m.get("decay_reached")
         row["decay_reached"] = bool(dr) if isinstance(dr, bool) else None
+        row["energy_balance"] = _num(m.get("energy_balance"))
         summary_rows.append(row)
 
         # S-parameters: the band from the Touchstone file, else the case frequency from metrics.json
@@ -410,7 +413,11 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
     else:
         sp = pd.DataFrame(columns=["case_id", CASE_FREQUENCY, *dict.fromkeys(pcols.values()), *SPARAMS_FIXED[1:]])
     sar = pd.DataFrame(sar_rows, columns=list(SAR_COLUMNS))
-    return {"summary": summary, "sparams": sp, "sar": sar}
+    frames = {"summary": summary, "sparams": sp, "sar": sar}
+    if plan is None and layout.plan_file.exists():
+        plan = read_plan(layout)
+    return add_budget(frames, layout, entries, budget_runs, ((plan or {}).get("settings") or {}).get("uncertainty"),
+                      read_metrics)
 
 
 def arrow_safe(df: pd.DataFrame) -> pd.DataFrame:

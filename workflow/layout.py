@@ -20,7 +20,7 @@ from .atomic import json_text, write_if_changed
 
 PLAN_VERSION = 2  # 2: each entry carries its solve_id
 #: the tables the collect step writes (:mod:`bodysweep.workflow.collect`), each as Parquet and CSV
-TABLE_NAMES = ("summary", "sparams", "sar")
+TABLE_NAMES = ("summary", "sparams", "sar", "uncertainty")
 #: folder of the shared store of solves inside the results folder (the default store)
 DEFAULT_STORE_NAME = "_solves"
 
@@ -89,3 +89,18 @@ def write_plan(layout: StudyLayout, study_name: str, entries: list[dict], settin
     if settings:
         content["settings"] = settings
     return write_if_changed(layout.plan_file, json_text(content))
+
+
+# -- component runs of an uncertainty budget in a plan (workflow/study/uncertainty.py writes them) ----------
+def budget_map(entries: list[dict]) -> dict[str, dict[str, str]]:
+    """``{case id: {component: id of its run}}`` from plan entries (their ``budget`` lists)."""
+    out: dict[str, dict[str, str]] = {}
+    for e in entries:
+        for b in e.get("budget") or []:
+            out.setdefault(b["of"], {})[b["component"]] = e["case_id"]
+    return out
+
+
+def is_budget_run(entry: dict) -> bool:
+    """Whether a plan entry is only a component run (not a case of the study's own sweep)."""
+    return bool(entry.get("budget")) and "uncertainty_run" in (entry.get("parameters") or {})

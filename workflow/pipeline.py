@@ -71,7 +71,7 @@ def plan_entry(case_dict: dict) -> dict:
     ports = case_dict.get("excite_ports") or (case_dict.get("solver") or {}).get("excite_ports") or [1]
     return {"case_id": case_dict["case_id"], "solve_id": case_dict.get("solve_id"), "label": case_dict.get("label", ""),
             "parameters": case_dict.get("parameters", {}), "frequency_Hz": case_dict.get("frequency_Hz"),
-            "ports": [int(p) for p in ports]}
+            "ports": [int(p) for p in ports], **({"budget": case_dict["budget"]} if case_dict.get("budget") else {})}
 
 
 @dataclass
@@ -91,6 +91,9 @@ def expand_study(study_path: str | Path, results_dir: str | Path = "results") ->
     study = load(study_path)
     layout = StudyLayout.of(study.name, results_dir)
     dicts = [c.to_dict() for c in expand_cases(study)]
+    from .study.uncertainty import budget_case_dicts
+
+    dicts += budget_case_dicts(study.raw, dicts, layout)[0]  # the uncertainty budget's component runs
     return study, layout, [plan_entry(d) for d in dicts], dicts
 
 
@@ -132,7 +135,13 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results", store: 
     written = 0
     for d in dicts:
         written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
-    write_plan(layout, study.name, entries, study_settings(study))
+    from .study.uncertainty import budget_settings
+
+    settings = study_settings(study)
+    budget = budget_settings(study.raw)
+    if budget is not None:
+        settings["uncertainty"] = budget
+    write_plan(layout, study.name, entries, settings)
     solves.register_study(root, layout.root)  # after plan.json: the clean-up sees these solves referenced
     done: set[str] = set()
     for d in dicts:
@@ -162,7 +171,7 @@ def link_solve(case_dir: Path, solve_dir: Path) -> None:
 
 
 #: case.json fields that describe the case but are not part of its identity
-DESCRIPTIVE_KEYS = ("label", "study", "parameters", "solve_id")
+DESCRIPTIVE_KEYS = ("label", "study", "parameters", "solve_id", "budget")
 
 
 def _results_relevant(case: dict) -> dict:

@@ -357,6 +357,9 @@ def write_report(layout: StudyLayout) -> Path:
     for caption, png in figures:
         lines += [f"### {caption}", "", f"![{caption}]({png.name})", ""]
     lines += _cases_table(summary, layout)
+    from .report_checks import budget_lines
+
+    lines += budget_lines(layout, summary, None if best is None else str(best["case_id"]))
     if not failed.empty:
         lines += ["## Failed cases", ""]
         lines += [f"- `{r['case_id']}` ({r['label']}): {r['status']}: {r['reason']}" for _, r in failed.iterrows()]

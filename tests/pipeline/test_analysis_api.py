@@ -43,10 +43,11 @@ def study(tmp_path_factory):
 def test_tables_in_one_call_are_the_parquet_files(study):
     path, results = study
     tables = bodysweep.load_tables(path, results_dir=results)
-    assert set(tables) == {"summary", "sparams", "sar"}
+    assert set(tables) == {"summary", "sparams", "sar", "uncertainty"}
+    assert tables["uncertainty"].empty  # the study has no uncertainty section
     for name, df in tables.items():
         pd.testing.assert_frame_equal(df, pd.read_parquet(results / "api_tiny" / "tables" / f"{name}.parquet"))
-    assert len(tables["summary"]) == 1 and tables["summary"]["status"].iloc[0] == "ok"
+    assert len(tables["summary"]) == 1 and tables["summary"]["status"].iloc[0] in ("ok", "warning")
 
 
 def test_sar_volume_in_one_call_is_the_stored_volume_and_its_peak_is_the_tables(study):
@@ -57,7 +58,7 @@ def test_sar_volume_in_one_call_is_the_stored_volume_and_its_peak_is_the_tables(
         np.testing.assert_array_equal(vol.values, h5["sar/avg_10g"][()])
         np.testing.assert_array_equal(vol.z_edges_m, h5["sar/z_edges_m"][()])
     assert vol.values.shape == (len(vol.x_edges_m) - 1, len(vol.y_edges_m) - 1, len(vol.z_edges_m) - 1)
-    assert vol.status == "ok" and vol.mass_g == 10.0
+    assert vol.status in ("ok", "warning") and vol.mass_g == 10.0
     sar = bodysweep.load_tables(path, results_dir=results)["sar"]
     row = sar[(sar["case_id"] == cid) & (sar["mass_g"] == 10)].iloc[0]
     peak, where = vol.peak()

@@ -95,7 +95,7 @@ def test_accept_cost_runs_and_the_disk_estimate_bounds_the_real_files(tmp_path):
     root = tmp_path / "results" / "tiny_accept"
     (cid,) = [e["case_id"] for e in json.loads((root / "plan.json").read_text())["cases"]]
     case = root / "cases" / cid
-    assert json.loads((case / "metrics.json").read_text())["status"] == "ok"
+    assert json.loads((case / "metrics.json").read_text())["status"] in ("ok", "warning")
     cells = json.loads((case / "solve" / "excite_1" / "status.json").read_text())["cells"]
     est = case_disk_bytes(cells, n_masses=2, n_excitations=1)
     # the file system's own sizes, of the case folder and of its solve in the shared store

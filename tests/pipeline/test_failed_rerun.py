@@ -59,7 +59,7 @@ def test_killed_engine_fails_its_case_only_and_retry_reruns_only_it(tmp_path):
     assert f"failed {bad}" in out and good not in out.split("done:")[1], out
     m = json.loads((root / "cases" / bad / "metrics.json").read_text())
     assert m["status"] == "failed" and "killed by signal 9" in m["reason"], m  # the reason says what happened
-    assert json.loads((root / "cases" / good / "metrics.json").read_text())["status"] == "ok"
+    assert json.loads((root / "cases" / good / "metrics.json").read_text())["status"] in ("ok", "warning")
     good_files, bad_files = fingerprint(root / "cases" / good), fingerprint(root / "cases" / bad)
 
     skip = run(["run", str(study), "--skip-failed", "--cores", "2"], tmp_path)
@@ -72,9 +72,9 @@ def test_killed_engine_fails_its_case_only_and_retry_reruns_only_it(tmp_path):
     assert retry.returncode == 0, retry.stdout + retry.stderr
     assert "retrying 1 failed cases" in retry.stdout and "running 1 of 2 cases" in retry.stdout
     assert fingerprint(root / "cases" / good) == good_files  # the finished case was not rerun
-    assert json.loads((root / "cases" / bad / "metrics.json").read_text())["status"] == "ok"
+    assert json.loads((root / "cases" / bad / "metrics.json").read_text())["status"] in ("ok", "warning")
     s = pd.read_parquet(root / "tables" / "summary.parquet")
-    assert sorted(s["case_id"]) == sorted([good, bad]) and (s["status"] == "ok").all()
+    assert sorted(s["case_id"]) == sorted([good, bad]) and s["status"].isin(("ok", "warning")).all()
     assert s["reason"].fillna("").eq("").all()
     v = run(["verify", str(study)], tmp_path)
     assert v.returncode == 0, v.stdout + v.stderr

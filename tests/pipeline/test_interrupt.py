@@ -92,11 +92,11 @@ def test_sigkill_mid_solve_then_rerun(tmp_path):
     assert fingerprint(done_dir) == before  # finished case: same files, same mtimes, same bytes
     st = json.loads((killed_dir / "solve" / "excite_1" / "status.json").read_text())
     assert st["status"] == "ok" and st["decay_reached"], st
-    assert json.loads((killed_dir / "metrics.json").read_text())["status"] == "ok"
+    assert json.loads((killed_dir / "metrics.json").read_text())["status"] in ("ok", "warning")
     assert not list((tmp_path / ".snakemake" / "locks").glob("*.lock"))
     assert not [p for p in root.rglob("*") if p.name.startswith(".")]  # no temporaries, no scratch left
     s = pd.read_parquet(root / "tables" / "summary.parquet")
-    assert sorted(s["case_id"]) == sorted([done_id, killed_id]) and (s["status"] == "ok").all()
+    assert sorted(s["case_id"]) == sorted([done_id, killed_id]) and s["status"].isin(("ok", "warning")).all()
     assert s["S11_dB"].notna().all() and s["S21_dB"].notna().all()
     open_every_file(root)
     v = run(["verify", str(study)], tmp_path)

@@ -140,7 +140,7 @@ def test_sigint_mid_run_stops_everything_and_the_rerun_solves_only_the_unfinishe
     for c, st in solved.items():
         assert st.stat().st_mtime_ns == mtimes[c]  # kept, not redone
     for c in ids:
-        assert json.loads((root / "cases" / c / "metrics.json").read_text())["status"] == "ok"
+        assert json.loads((root / "cases" / c / "metrics.json").read_text())["status"] in ("ok", "warning")
 
 
 def test_lock_refusal_names_a_snakemake_started_by_bodysweep(tmp_path):

@@ -144,7 +144,7 @@ def test_console_script_from_another_folder(installed, tmp_path):
     root = tmp_path / "results" / "wheel_tiny"
     with open(root / "tables" / "summary.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
-    assert len(rows) == 1 and rows[0]["status"] == "ok", rows
+    assert len(rows) == 1 and rows[0]["status"] in ("ok", "warning"), rows
     assert (root / "report" / "report.md").exists()
 
     # the analysis API of the installed package reads the same results

