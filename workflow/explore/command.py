@@ -59,7 +59,7 @@ def mesh_check_name(name: str) -> str:
 
 
 def cmd_explore(a) -> int:
-    from ..cli import StudyUnusable, _err, _expand
+    from ..cli_support import StudyUnusable, _err, _expand
     from ..study.exploration import parse_search
 
     study = _expand(a.study, a.results_dir)[0]  # the study and its own cases, as `run` checks them
@@ -89,7 +89,7 @@ def _explore_locked(a, study, spec, folder: Path) -> int:
 
     print(f"search folder: {folder}")
     driver = SearchDriver(spec, folder)
-    points = PipelinePoints(study, spec, folder, a.results_dir, run_args(a))
+    points = PipelinePoints(study, spec, folder, a.results_dir, run_args(a), run_command=a.run_command)
     try:
         why = driver.run(points)
     except SearchStopped as exc:
@@ -112,7 +112,7 @@ def _explore_locked(a, study, spec, folder: Path) -> int:
         print(f"mesh check: the best {len(best)} points again at solver.cells_per_wavelength = {dense:g} "
               f"(search: {float(cpw):g}) as study {name}")
         checker = PipelinePoints(study, spec, folder, a.results_dir, run_args(a), name=name,
-                                 solver={"cells_per_wavelength": dense})
+                                 solver={"cells_per_wavelength": dense}, run_command=a.run_command)
         pts = [t.user_attrs["point"] for t in best]
         try:
             outs = checker.evaluate(pts, pts)

@@ -30,7 +30,7 @@ def point_cases(raw: dict, spec: SearchSpec, point: dict) -> list[dict]:
     StudyError, StudyUnusable
         The point's scene is refused (e.g. parts overlapping): its one-line message.
     """
-    from ..cli import _check_geometry
+    from ..cli_support import _check_geometry
     from ..study import expand, load_study
 
     cases = [c.to_dict() for c in expand(load_study(points_study(raw, spec, [point])))]
@@ -75,7 +75,12 @@ class PipelinePoints:
     """Evaluator of the search driver: points as ordinary cases run by ``bodysweep run``."""
 
     def __init__(self, study, spec: SearchSpec, folder: Path, results_dir: str, run_args: list[str],
-                 name: str | None = None, solver: dict | None = None):
+                 name: str | None = None, solver: dict | None = None, run_command=None):
+        """``run_command``: the command line's entry point (``argv -> exit code``), handed down by ``cli.main``
+        so that this layer above ``run`` does not import the command line."""
+        if run_command is None:
+            raise ValueError("PipelinePoints needs the command line's entry point (run_command)")
+        self.run_command = run_command
         self.study, self.spec, self.folder = study, spec, Path(folder)
         self.results_dir, self.run_args = results_dir, list(run_args)
         self.name, self.solver = name, solver
@@ -93,7 +98,7 @@ class PipelinePoints:
         return self._cases[key]
 
     def refuse(self, point: dict) -> str | None:
-        from ..cli import StudyUnusable
+        from ..cli_support import StudyUnusable
         from ..study.errors import StudyError
 
         try:
@@ -109,13 +114,12 @@ class PipelinePoints:
         return path
 
     def evaluate(self, points: list[dict], all_points: list[dict]) -> list[Outcome]:
-        from ..cli import main
         from ..collect import collect_frames
         from ..layout import StudyLayout
         from ..pipeline import plan_entry
 
         path = self.study_file(all_points)
-        rc = main(["run", str(path), "--results-dir", self.results_dir, *self.run_args])
+        rc = self.run_command(["run", str(path), "--results-dir", self.results_dir, *self.run_args])
         if rc not in RUN_CONTINUES:
             raise SearchStopped(f"`bodysweep run {path}` ended with exit {rc}", rc)
         layout = StudyLayout.of(self.name or self.study.name, self.results_dir)

@@ -165,7 +165,7 @@ def _range_parameter(name: str, spec: dict, where: str, base: dict, choices: dic
                              f"{path2parts(path)[0]} (nor in an option of a searched choice)", path,
                              "a dotted path to an existing number")
     else:
-        from .study import base_value
+        from .schema import base_value
 
         current = base_value(base, path)
         if not isinstance(current, (int, float)) or isinstance(current, bool):

@@ -17,6 +17,7 @@ from jsonschema.exceptions import ValidationError, best_match
 from referencing.jsonschema import DRAFT202012
 
 from .errors import StudyError, join_path, value2text
+from .paths import get_path, has_path, path2parts
 
 STUDY_SCHEMA_URI = "bodysweep/study.schema.json"
 SCENE_SCHEMA_URI = "bodysweep/scene.schema.json"
@@ -285,3 +286,19 @@ class CaseSceneChecker:
                                  show_value=err.show_value)
             self._parts.add((k, text))
             self._seen.add(seen)
+
+
+# -- values a study leaves unwritten: the solver schema's defaults ----------------------------------------
+def declared_solver_key(path: str) -> bool:
+    """True for ``solver.<key>`` where ``<key>`` is declared by the solver schema (present or not)."""
+    parts = path2parts(path)
+    return len(parts) == 2 and parts[0] == "solver" and parts[1] in solver_key_defaults()
+
+
+def base_value(base: dict, path: str) -> Any:
+    """Value at ``path`` in the base, or the solver schema's default for an unwritten solver key."""
+    if has_path(base, path):
+        return get_path(base, path)
+    if declared_solver_key(path):
+        return solver_key_defaults().get(path2parts(path)[1])
+    return None

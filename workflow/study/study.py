@@ -16,7 +16,7 @@ from .errors import StudyError, join_path
 from .expressions import expression_names, parse_expression
 from .paths import get_path, has_path, parent_exists, path2parts
 from .safe_yaml import load_yaml_file, text2data, bytes2text
-from .schema import solver_key_defaults, study_schema, validate_study_data
+from .schema import base_value, declared_solver_key, solver_key_defaults, study_schema, validate_study_data  # noqa: F401
 from .sweeps import RESERVED_NAMES, Block, Parameter, block_kind, block_names, block_rows, block_size
 
 #: default largest number of cases a study may expand to (``budget.max_cases`` raises it)
@@ -119,21 +119,6 @@ def _plain(data: Any, path: str = "") -> Any:
         return data
     raise StudyError(path or "(root)", f"not plain data ({type(data).__name__})", data,
                      "mappings, lists, strings, numbers, booleans, null")
-
-
-def declared_solver_key(path: str) -> bool:
-    """True for ``solver.<key>`` where ``<key>`` is declared by the solver schema (present or not)."""
-    parts = path2parts(path)
-    return len(parts) == 2 and parts[0] == "solver" and parts[1] in solver_key_defaults()
-
-
-def base_value(base: dict, path: str) -> Any:
-    """Value at ``path`` in the base, or the solver schema's default for an unwritten solver key."""
-    if has_path(base, path):
-        return get_path(base, path)
-    if declared_solver_key(path):
-        return solver_key_defaults().get(path2parts(path)[1])
-    return None
 
 
 def _section_of(path: str) -> str:
