@@ -48,17 +48,6 @@ def _versions() -> str:
 from .cli_support import StudyUnusable, _build_model, _check_geometry, _err, _expand  # noqa: F401 (re-exported)
 
 
-def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
-    """Add the scene's arrangement warnings (:mod:`bodysweep.geometry.arrangement`) to ``notes``."""
-    from bodysweep.geometry.arrangement import arrangement_warnings
-    from bodysweep.geometry.scene import Scene
-
-    for text in arrangement_warnings(Scene.from_dict(case["scene"])):
-        labels = notes.setdefault(text, [])
-        if case.get("label", "") not in labels:
-            labels.append(case.get("label", ""))
-
-
 # -- cost ------------------------------------------------------------------------------------------------
 def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
     """One row per case: state and, for cases still to solve, the mesh and cost estimate.

@@ -38,6 +38,17 @@ def _build_model(case: dict):
     return Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))
 
 
+def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
+    """Add the scene's arrangement warnings (:mod:`bodysweep.geometry.arrangement`) to ``notes``."""
+    from bodysweep.geometry.arrangement import arrangement_warnings
+    from bodysweep.geometry.scene import Scene
+
+    for text in arrangement_warnings(Scene.from_dict(case["scene"])):
+        labels = notes.setdefault(text, [])
+        if case.get("label", "") not in labels:
+            labels.append(case.get("label", ""))
+
+
 def _check_geometry(dicts: list[dict]) -> int:
     """Build every distinct scene once; raise StudyUnusable naming the first case that fails."""
     import json
