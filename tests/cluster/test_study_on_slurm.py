@@ -54,7 +54,7 @@ PARTITION = "bulk"  # the non-default partition of the local SLURM (start_slurm.
 # columns that legitimately differ between two runs of the same case
 # timesteps: the energy-decay end criterion is checked at intervals, so two runs of one case can stop
 # a check apart (seen: 8092 vs 7980 and 8190 vs 8585 steps; the engine checks it on a wall-clock interval); results then agree to the tolerance used below.
-RUN_DEPENDENT = {"runtime_s", "reason", "timesteps"}
+RUN_DEPENDENT = {"runtime_s", "reason", "timesteps", "warnings"}  # warnings quote run-dependent figures (energy balance)
 
 
 def _test_profile(tmp: Path) -> Path:

@@ -79,7 +79,7 @@ def test_explore_two_rounds_killed_and_resumed(tmp_path):
     rounds = _rounds(root)
     assert [len(r) for r in rounds] == [2, 2]
     summary = pd.read_csv(root / "tables" / "summary.csv")
-    assert len(summary) == 4 and set(summary["status"]) == {"ok"}
+    assert len(summary) == 4 and set(summary["status"]) <= {"ok", "warning"}
     assert summary["scene.implant.depth_mm"].between(5, 10).all()
     assert (folder / "report.md").exists() and (folder / "progress.png").exists()
     check = json.loads((folder / "mesh_check.json").read_text())

@@ -44,7 +44,7 @@ def test_failed_case_is_recorded_and_retried(tmp_path, monkeypatch, capsys):
 
     st = json.loads((layout.case_dir(other["case_id"]) / "solve" / "excite_1" / "status.json").read_text())
     assert st["timesteps"] and st["timesteps"] > 1000
-    assert other["status"] == "ok" or (other["reason"] and "timesteps" not in other["reason"])
+    assert other["status"] in ("ok", "warning") or (other["reason"] and "timesteps" not in other["reason"])
     n_failed = int((s["status"] == "failed").sum())
     # failures are kept by default: nothing is scheduled again
     assert _case_jobs(scheduled_jobs(study, workdir=tmp_path)) == {"scene": 0, "solve": 0, "finish": 0}

@@ -137,7 +137,7 @@ def test_console_script_from_another_folder(installed, tmp_path):
     r = _run(venv, [exe, "check", study.name], tmp_path)
     assert r.returncode == 0 and "1 cases" in r.stdout, r.stdout + r.stderr
     r = _run(venv, [exe, "plan", study.name, "--accept-cost"], tmp_path)
-    assert r.returncode == 0 and "total: 1 cases" in r.stdout and " to run " in r.stdout, r.stdout + r.stderr
+    assert r.returncode == 0 and "total: 1 cases" in r.stdout and " to solve " in r.stdout, r.stdout + r.stderr
 
     r = _run(venv, [exe, "run", study.name, "--cores", "1", "--accept-cost"], tmp_path, timeout=800)
     assert r.returncode == 0, r.stdout + r.stderr
