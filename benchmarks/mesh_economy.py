@@ -76,7 +76,7 @@ def variant_dir(src_case: dict, root: Path, name: str) -> Path:
 
 def solve_variant(d: Path) -> dict:
     from bodysweep.workflow import steps
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     steps.build_scene(d)

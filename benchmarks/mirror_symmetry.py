@@ -151,7 +151,7 @@ def _db(z) -> float:
 
 
 def part2_pec(work: Path) -> None:
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     print("Part 2: electric wall (PEC) on x = 0 through both feed gaps, half domain x >= 0 (mirror_plane: x)")

@@ -58,12 +58,15 @@ def engine_times(log: str) -> tuple[float, float, int]:
 def in_process(case_dir: Path) -> dict[str, float]:
     """In-process seconds of the overhead pieces of one solved case (imports already done)."""
     from bodysweep.geometry.preview import preview_png
+    from bodysweep.workflow.casefolder import CaseFolder
     from bodysweep.geometry.scene import Scene
     from bodysweep.workflow.solver import build, engine
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
+    from bodysweep.workflow.solver.cost import estimate
+    from bodysweep.workflow.solver.mesh import checked_mesh
     from bodysweep.workflow.solver.run import load_case_inputs
 
-    case = json.loads((case_dir / "case.json").read_text())
+    case = CaseFolder(case_dir).read_case_strict()
     out = {}
     t0 = time.perf_counter()
     model = Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))
@@ -74,8 +77,12 @@ def in_process(case_dir: Path) -> dict[str, float]:
         preview_png(model, Path(tmp) / "p.png")
         out["preview png"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    _, model, settings, plan = load_case_inputs(case_dir)
-    out["read inputs + auto mesh + check"] = time.perf_counter() - t0
+    _, model, settings, plan = load_case_inputs(case_dir)  # the stored mesh (mesh.json) of the scene step
+    out["read inputs + stored mesh"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    checked_mesh(model, settings)
+    estimate(checked_mesh(model, settings), model, settings)
+    out["auto mesh + check + estimate (what each stage did before the mesh was stored)"] = (time.perf_counter() - t0) / 2
     t0 = time.perf_counter()
     fdtd, csx = engine.new_simulation(case["frequency_Hz"], 0.5 * case["frequency_Hz"], 1e-3, 1000,
                                       settings.boundary, settings.pml_cells)
@@ -94,9 +101,9 @@ def import_times() -> dict[str, float]:
               "solve child imports": "import bodysweep.workflow.solver.run as r, bodysweep.workflow.solver.build, "
                                      "bodysweep.workflow.solver.ports; from bodysweep.workflow.solver import engine; "
                                      "engine.load()",
-              "finish job imports": "import h5py, bodysweep.workflow.solver.case, bodysweep.workflow.post.sar_average, "
+              "finish job imports": "import h5py, bodysweep.workflow.finish, bodysweep.workflow.post.sar_average, "
                                     "bodysweep.workflow.post.twoport; "
-                                    "from bodysweep.workflow.solver.case import _versions; _versions()",
+                                    "from bodysweep.workflow.finish import _versions; _versions()",
               "collect job imports": "import bodysweep.workflow.collect"}
     out = {}
     for k, code in probes.items():
@@ -126,6 +133,7 @@ def study_copy(study: Path, work: Path) -> Path:
 
 
 def run_study(study: Path, pick, work: Path, threads: int) -> list[dict]:
+    from bodysweep.workflow.casefolder import SolveFolder
     from bodysweep.workflow.pipeline import prepare
 
     prep = prepare(study_copy(study, work), work / "results")
@@ -136,8 +144,9 @@ def run_study(study: Path, pick, work: Path, threads: int) -> list[dict]:
         r = {"case": e["label"], "case_dir": d}
         r["scene"] = step("scene", str(d))
         r["solve job"] = step("solve", str(d), "--port", "1", "--threads", str(threads))
-        st = json.loads((d / "excite_1" / "status.json").read_text())
-        r["op"], r["ts"], r["timesteps"] = engine_times((d / "excite_1" / "solver.log").read_text())
+        exc = SolveFolder(d).excitation(1)
+        st = exc.read_status_strict()
+        r["op"], r["ts"], r["timesteps"] = engine_times(exc.log_file.read_text())
         r["cells"] = st["cells"]
         r["finish"] = step("finish", str(d), "--ports", "1")
         rows.append(r)

@@ -12,7 +12,7 @@ The solve is kept short: end criterion -30 dB, band_fraction 0.3 (pulse as in wo
 Measured side by side in one run:
 
 (a) ``average_sar`` (workflow/post/sar_average.py) for 1 g and 10 g on the local SAR of ``fields_raw.h5``
-    (:func:`workflow.solver.case.sar_per_watt`, per W accepted at port 1), as finish_case does;
+    (:func:`workflow.finish.sar_per_watt`, per W accepted at port 1), as finish_case does;
 (b) the engine's built-in averaged SAR (dump types 21 / 22, ``SAR_Method`` IEEE_62704) of the same case:
     the same child process as :func:`workflow.solver.run.solve_solver_sar` (mode ``solver_sar``), but
     started here with its console output read line by line and time-stamped on arrival. openEMS 0.0.35
@@ -156,7 +156,7 @@ def main(argv=None) -> int:
     from bodysweep.workflow.post import sparams
     from bodysweep.workflow.post.sar_average import average_sar
     from bodysweep.workflow.reference.sar_bruteforce import exact_cube_average_bruteforce
-    from bodysweep.workflow.solver.case import read_excitation, read_raw_fields, sar_per_watt
+    from bodysweep.workflow.finish import read_excitation, read_raw_fields, sar_per_watt
     from bodysweep.workflow.solver.run import solve_excitation
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])

@@ -35,7 +35,7 @@ RUNS = ((-20.0, None), (-30.0, None), (-40.0, None), (-50.0, None), (-30.0, 1.0)
 
 def solve(case: dict, d: Path) -> dict:
     from bodysweep.workflow import steps
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     d.mkdir(parents=True)

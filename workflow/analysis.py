@@ -14,12 +14,12 @@ the case-folder contract (DEVELOPERS.md); nothing is computed again. Volumes and
 """
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from .casefolder import CaseFolder
 from .layout import TABLE_NAMES, StudyLayout, read_plan
 
 
@@ -109,31 +109,25 @@ class StudyResults:
 
     def sar_volume(self, case: str | int, mass_g: float | None = None) -> SarVolume:
         """The local (``mass_g=None``) or mass-averaged SAR volume of a case (``result.h5``, group ``sar``)."""
-        import h5py
-
         e = self.case(case)
-        d = self.layout.case_dir(e["case_id"])
-        try:
-            metrics = json.loads((d / "metrics.json").read_text())
-        except FileNotFoundError:
-            raise FileNotFoundError(f"case {e['case_id']} ({e.get('label', '')}) has no result yet: run the study") from None
-        if not (d / "result.h5").exists():
+        folder = CaseFolder(self.layout.case_dir(e["case_id"]))
+        metrics = folder.read_metrics()
+        if metrics is None:
+            raise FileNotFoundError(f"case {e['case_id']} ({e.get('label', '')}) has no result yet: run the study")
+        if not folder.has_result():
             raise FileNotFoundError(f"case {e['case_id']} ({e.get('label', '')}) has no SAR volume: status "
                                     f"{metrics.get('status')!r}, {metrics.get('reason') or 'no reason recorded'}")
         key = "local" if mass_g is None else f"avg_{float(mass_g):g}g"
-        with h5py.File(d / "result.h5", "r") as h5:
-            if "sar" not in h5:
-                raise KeyError(f"case {e['case_id']}: result.h5 holds no SAR volumes")
-            g = h5["sar"]
-            if key not in g:
-                have = sorted(k for k in g if k == "local" or k.startswith("avg_"))
-                raise KeyError(f"case {e['case_id']}: no SAR volume for mass_g={mass_g!r}; stored: {', '.join(have)}")
-            return SarVolume(values=np.asarray(g[key][()], dtype=float), x_edges_m=g["x_edges_m"][()],
-                             y_edges_m=g["y_edges_m"][()], z_edges_m=g["z_edges_m"][()],
-                             density_kg_m3=g["density_kg_m3"][()], mass_g=None if mass_g is None else float(mass_g),
-                             case_id=e["case_id"], label=e.get("label", ""), status=str(metrics.get("status")),
-                             reason=metrics.get("reason"))
-
+        have = folder.sar_volume_names()
+        if not have:
+            raise KeyError(f"case {e['case_id']}: {folder.result_file.name} holds no SAR volumes")
+        if key not in have:
+            raise KeyError(f"case {e['case_id']}: no SAR volume for mass_g={mass_g!r}; stored: {', '.join(have)}")
+        vol = folder.read_sar(key)
+        return SarVolume(values=vol["values"], x_edges_m=vol["edges"][0], y_edges_m=vol["edges"][1],
+                         z_edges_m=vol["edges"][2], density_kg_m3=vol["density_kg_m3"],
+                         mass_g=None if mass_g is None else float(mass_g), case_id=e["case_id"],
+                         label=e.get("label", ""), status=str(metrics.get("status")), reason=metrics.get("reason"))
 
 def open_study(study: str | Path, results_dir: str | Path = "results") -> StudyResults:
     """The results of a study: ``.tables()``, ``.sar_volume(case, mass_g)``, ``.cases``, ``.root``."""

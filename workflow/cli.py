@@ -21,9 +21,11 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+from functools import partial
 from pathlib import Path
 
 from .budget import budget_problems, fmt_bytes, fmt_cpu, machine_memory_GB, study_cpu_budget_hours
+from .casefolder import CASE_FILE
 
 EXIT_OK, EXIT_ERROR, EXIT_STUDY, EXIT_FAILED, EXIT_BUDGET, EXIT_BUSY, EXIT_INTERRUPTED = 0, 1, 2, 3, 4, 5, 6
 
@@ -63,7 +65,8 @@ def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
     states = case_states(layout, entries, previous, store)
     need = [d for d, (state, _) in zip(dicts, states) if state == "to solve"]
     known = cost_cache.load(layout.root)
-    found = cost_cache.estimates(need, known, case_estimate)
+    # a solve already meshed in the store (mesh.json) is not meshed again
+    found = cost_cache.estimates(need, known, partial(case_estimate, store=store) if store is not None else case_estimate)
     rows = []
     for e, d, (state, why) in zip(entries, dicts, states):
         row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
@@ -366,8 +369,10 @@ def cmd_preview(a) -> int:
         raise StudyUnusable(f"case {a.case!r} is not in study {study.name!r}: give a case id, a label or an "
                             f"index 0..{len(dicts) - 1} (see `bodysweep plan`)")
     case = pick[0]
-    stored = _store(a) / case["solve_id"] / "preview.png"  # the scene step's preview, once the case ran
-    out = Path(a.output) if a.output else (stored if stored.exists() else layout.case_dir(case["case_id"]) / "preview.png")
+    from .casefolder import SolveFolder
+
+    stored = SolveFolder(_store(a) / case["solve_id"]).preview_file  # the scene step's preview, once the case ran
+    out = Path(a.output) if a.output else (stored if stored.exists() else layout.case_dir(case["case_id"]) / stored.name)
     if out.exists() and not a.output:
         print(out)
         return EXIT_OK
@@ -486,7 +491,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("case", help="case id, label, or index in the study's case list")
     p.add_argument("--output", default=None, help="write the PNG here instead of the case folder")
     add("report", "write the plots and report.md of a study from its tables", cmd_report)
-    add("verify", "check that every case's files are present, case ids match case.json, tables match the cases",
+    add("verify", f"check that every case's files are present, case ids match {CASE_FILE}, tables match the cases",
         cmd_verify)
     p = sub.add_parser("solves", help="list the shared store of solves (size, studies using each); "
                        "--remove-unused removes the solves no study refers to",

@@ -20,13 +20,13 @@ cluster profile's ``default-resources`` or from ``bodysweep run --partition/--ac
 """
 from __future__ import annotations
 
-import json
 import math
 import os
 from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Mapping
 
+from .casefolder import SolveFolder
 from .solver.cost import CostEstimate
 
 MIB = 2**20
@@ -152,15 +152,14 @@ _FOLDER_COSTS: dict[tuple[str, int, int], tuple[CostEstimate, int]] = {}
 
 
 def _case_cost_from_folder(case_dir: Path) -> tuple[CostEstimate, int]:
-    """The cost estimate of a prepared case and the study's requested threads (0 = choose).
+    """The cost estimate of a prepared solve (or case) folder and the requested threads (0 = choose).
 
-    The estimate comes from the case's mesh (:func:`bodysweep.workflow.estimate.case_estimate`; no
-    openEMS import). Results are cached per ``case.json`` modification time and size: Snakemake asks for
-    a job's resources several times.
+    The estimate is the solve's stored one (``mesh.json``; meshed and stored here when no stage did it
+    before, :func:`bodysweep.workflow.estimate.solve_estimate`; no openEMS import). Results are cached per
+    inputs file modification time and size: Snakemake asks for a job's resources several times.
     """
-    case_file = case_dir / "solve.json"  # a solve folder of the store (its solver settings lack threads)
-    if not case_file.exists():
-        case_file = case_dir / "case.json"
+    folder = SolveFolder(case_dir)
+    case_file = folder.inputs_file  # a solve folder of the store has solve.json (its solver settings lack threads)
     try:
         st = case_file.stat()
     except FileNotFoundError:
@@ -169,11 +168,11 @@ def _case_cost_from_folder(case_dir: Path) -> tuple[CostEstimate, int]:
     hit = _FOLDER_COSTS.get(key)
     if hit is not None:
         return hit
-    case = json.loads(case_file.read_text())
+    case = folder.read_inputs()
     requested = int((case.get("solver") or {}).get("threads", 0) or 0)
-    from .estimate import case_estimate
+    from .estimate import solve_estimate
 
-    cost = case_estimate(case)  # CostEstimate checks itself: positive cells, memory and CPU time
+    cost = solve_estimate(folder.dir)  # CostEstimate checks itself: positive cells, memory and CPU time
     _FOLDER_COSTS[key] = (cost, requested)
     return cost, requested
 
@@ -185,7 +184,7 @@ def resources_for_case(source: str | os.PathLike | Mapping | CostEstimate, attem
     Parameters
     ----------
     source : path, CostEstimate or mapping
-        A prepared case folder (its ``case.json`` is meshed and costed, see :func:`_case_cost_from_folder`),
+        A prepared solve or case folder (its stored mesh's estimate, see :func:`_case_cost_from_folder`),
         an estimate, or its :meth:`~bodysweep.workflow.solver.cost.CostEstimate.to_dict` form.
     attempt : int
         Snakemake's attempt counter (1 on the first submission); each retry asks for more.

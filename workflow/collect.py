@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from .atomic import atomic_path
+from .casefolder import METRICS_FILE, CaseFolder
 from .layout import TABLE_NAMES, StudyLayout, read_plan
 from .post.flags import WARNING_SEPARATOR  # between the warnings of one case in the ``warnings`` column
 
@@ -141,8 +142,8 @@ def touchstone2arrays(path: str | Path) -> tuple[np.ndarray, np.ndarray]:
     return f_Hz, S
 
 
-LEGACY_NOTE = ("metrics.json written before port figures existed: input impedances, mismatch losses and K are "
-               "empty; remove the case's metrics.json and run the study again (only the finish step reruns)")
+LEGACY_NOTE = (f"{METRICS_FILE} written before port figures existed: input impedances, mismatch losses and K are "
+               f"empty; remove the case's {METRICS_FILE} and run the study again (only the finish step reruns)")
 
 
 def _legacy_metrics(m: dict, S: dict):
@@ -165,25 +166,17 @@ def _legacy_metrics(m: dict, S: dict):
     return convert
 
 
-def _band_from_result(path: Path) -> tuple[np.ndarray, np.ndarray]:
-    """The band S-matrix kept in a case's ``result.h5`` (``sparams/f_Hz``, ``sparams/S``; NaN = not computed)."""
-    import h5py
-
-    with h5py.File(path, "r") as h5:
-        return h5["sparams/f_Hz"][()], h5["sparams/S"][()]
-
-
 # -- reading the case folders -------------------------------------------------------------------------
 def read_metrics(case_dir: Path) -> dict:
     """``metrics.json`` of a case, or a record saying it is missing / unreadable."""
-    p = case_dir / "metrics.json"
+    folder = CaseFolder(case_dir)
+    name = folder.metrics_file.name
     try:
-        with open(p, "rb") as fh:
-            return json.load(fh)
+        return folder.read_metrics_strict()
     except FileNotFoundError:
-        return {"status": "missing", "reason": "no metrics.json yet (case not run or still running)"}
+        return {"status": "missing", "reason": f"no {name} yet (case not run or still running)"}
     except (OSError, ValueError) as exc:
-        return {"status": "failed", "reason": f"metrics.json unreadable: {exc}"}
+        return {"status": "failed", "reason": f"{name} unreadable: {exc}"}
 
 
 #: the case frequency is a parameter of every case; in the summary it is the ``frequency_MHz`` column
@@ -353,14 +346,13 @@ def collect_frames(layout: StudyLayout, entries: list[dict] | None = None, *,
 
         # S-parameters: the band from the Touchstone file, else the case frequency from metrics.json
         block = None
-        ts = cdir / "sparams.s2p"
-        if not ts.exists() and (cdir / "sparams.s1p").exists():  # a scene without implant is a one-port
-            ts = cdir / "sparams.s1p"
-        if band and row["status"] in ("ok", "warning") and ts.exists():
+        folder = CaseFolder(cdir)
+        ts = folder.touchstone_file()  # a scene without implant is a one-port
+        if band and row["status"] in ("ok", "warning") and ts is not None:
             try:
                 if ts.suffix == ".s1p" and S["S21"] == S["S21"]:
                     # only port 1 excited: the one-port file holds S11, result.h5 the computed S21 too
-                    block = _band_from_result(cdir / "result.h5")
+                    block = folder.read_result_band()
                 else:
                     block = touchstone2arrays(ts)
             except (OSError, ValueError, KeyError):

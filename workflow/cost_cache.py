@@ -21,9 +21,10 @@ from pathlib import Path
 from typing import Callable
 
 from .atomic import write_text
+from .layout import StudyLayout
 from .solver.cost import CostEstimate
 
-FILE_NAME = "cost_estimates.json"
+FILE_NAME = StudyLayout(Path(".")).cost_file.name
 #: below this many missing estimates the work is done in this process (a pool costs about half a second)
 PARALLEL_FROM = 64
 

@@ -285,8 +285,10 @@ def after_stop(layout: StudyLayout, entries: list[dict], workdir: str | Path = "
     # finished jobs whose end Snakemake did not register are kept
     settle_incomplete(layout, workdir, (store,) if store is not None else ())
     clear_interrupted(layout, workdir, store)
-    done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in entries)
-    solved = sum((layout.case_dir(e["case_id"]) / "solve" / f"excite_{p}" / "status.json").exists()
+    from .casefolder import CaseFolder, SolveFolder
+
+    done = sum(CaseFolder(layout.case_dir(e["case_id"])).has_metrics() for e in entries)
+    solved = sum(SolveFolder(CaseFolder(layout.case_dir(e["case_id"])).solve_link).excitation(p).status_file.exists()
                  for e in entries for p in e["ports"])
     n_solves = sum(len(e["ports"]) for e in entries)
     return f"kept: {done} of {len(entries)} cases finished, {solved} of {n_solves} solver runs done"

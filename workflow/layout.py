@@ -66,6 +66,11 @@ class StudyLayout:
     def plan_file(self) -> Path:
         return self.root / "plan.json"
 
+    @property
+    def cost_file(self) -> Path:
+        """The remembered cost estimates of the study's cases (:mod:`.cost_cache`)."""
+        return self.root / "cost_estimates.json"
+
     def table_files(self) -> list[Path]:
         """The table files the collect step writes (Parquet and CSV of each table)."""
         return [self.tables_dir / f"{n}.{ext}" for n in TABLE_NAMES for ext in ("parquet", "csv")]

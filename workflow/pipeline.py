@@ -29,7 +29,8 @@ from importlib import resources
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from .atomic import json_text, write_if_changed, write_json
+from .atomic import json_text, write_if_changed
+from .casefolder import KEPT_ON_RESET, CaseFolder, SolveFolder
 from .layout import StudyLayout, read_plan, write_plan
 from .progress import running_progress
 
@@ -134,7 +135,7 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results", store: 
     previous = previous_plan(layout)
     written = 0
     for d in dicts:
-        written += write_case_json(layout.case_dir(d["case_id"]) / "case.json", d)
+        written += write_case_json(CaseFolder(layout.case_dir(d["case_id"])).case_file, d)
     from .study.uncertainty import budget_settings
 
     settings = study_settings(study)
@@ -154,7 +155,7 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results", store: 
 
 def link_solve(case_dir: Path, solve_dir: Path) -> None:
     """A symbolic link ``<case folder>/solve`` to the case's solve folder in the store (for people browsing)."""
-    link = case_dir / "solve"
+    link = CaseFolder(case_dir).solve_link
     target = os.path.relpath(solve_dir.resolve(), case_dir.resolve())
     try:
         if os.readlink(link) == target:
@@ -210,14 +211,6 @@ def write_case_json(path: Path, case: dict) -> bool:
 
 
 # -- the state of a case ----------------------------------------------------------------------------------
-def read_json(path: Path) -> dict | None:
-    try:
-        with open(path, "rb") as fh:
-            return json.load(fh)
-    except (FileNotFoundError, ValueError):
-        return None
-
-
 def _store_of(layout: StudyLayout, store: Path | None) -> Path:
     """The store given, else the default one of the study's results folder (see :func:`.store.store_root`)."""
     from .store import store_root
@@ -235,7 +228,7 @@ def case_state(layout: StudyLayout, entry: dict, previous: dict[str, str] | None
     """
     from .store import solve_state
 
-    m = read_json(layout.case_dir(entry["case_id"]) / "metrics.json")
+    m = CaseFolder(layout.case_dir(entry["case_id"])).read_metrics()
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
             return "done", ""
@@ -266,13 +259,13 @@ def reset_failed(layout: StudyLayout, entries: Iterable[dict], store: Path | Non
     reset = []
     for e in entries:
         d = layout.case_dir(e["case_id"])
-        m = read_json(d / "metrics.json")
+        m = CaseFolder(d).read_metrics()
         if m is None or str(m.get("status")) in OK_STATUSES:
             continue
         if e.get("solve_id"):
             reset_failed_solve(Path(root) / e["solve_id"], e.get("ports", [1]))
         for p in d.iterdir():
-            if p.name in ("case.json", "solve"):
+            if p.name in KEPT_ON_RESET:
                 continue
             if p.is_dir():
                 shutil.rmtree(p)
@@ -296,15 +289,16 @@ def mark_unfinished(layout: StudyLayout, entries: Iterable[dict], store: Path | 
     """
     marked = []
     for e in entries:
-        d = layout.case_dir(e["case_id"])
-        if (d / "metrics.json").exists():
+        case = CaseFolder(layout.case_dir(e["case_id"]))
+        d = case.dir
+        if case.has_metrics():
             continue
-        logs = sorted(str(p.relative_to(d)) for p in (d / "logs").glob("*.log")) if (d / "logs").exists() else []
-        sd = _store_of(layout, store) / str(e.get("solve_id"))
-        logs += sorted(str(p) for p in (sd / "logs").glob("*.log")) if (sd / "logs").exists() else []
+        logs = sorted(str(p.relative_to(d)) for p in case.logs_dir.glob("*.log")) if case.logs_dir.exists() else []
+        sd = SolveFolder(_store_of(layout, store) / str(e.get("solve_id"))).logs_dir
+        logs += sorted(str(p) for p in sd.glob("*.log")) if sd.exists() else []
         if not logs:  # no job of this case started (the pipeline stopped before): nothing to record
             continue
-        write_json(d / "metrics.json", failure_record(
+        case.write_metrics(failure_record(
             e, f"a job of this case ended without a result (crashed or killed); see {', '.join(logs)}",
             "run"))
         marked.append(e["case_id"])
@@ -431,7 +425,7 @@ def run_snakemake(args: list[str], *, layout: StudyLayout, entries: list[dict], 
     from .interrupt import PARENT_ENV, RunInterrupted, stop_run, stop_signals_raise
 
     log_path.parent.mkdir(parents=True, exist_ok=True)
-    todo = [e for e in entries if not (layout.case_dir(e["case_id"]) / "metrics.json").exists()]
+    todo = [e for e in entries if not CaseFolder(layout.case_dir(e["case_id"])).has_metrics()]
     total, start = len(todo), time.monotonic()
     echo(f"running {total} of {len(entries)} cases (log: {log_path})")
     since = log_path.stat().st_size if log_path.exists() else 0
@@ -465,7 +459,7 @@ def _follow(proc, layout: StudyLayout, todo: list[dict], total: int, start: floa
     last_detail = time.monotonic()
     while True:
         rc = proc.poll()
-        done = sum((layout.case_dir(e["case_id"]) / "metrics.json").exists() for e in todo)
+        done = sum(CaseFolder(layout.case_dir(e["case_id"])).has_metrics() for e in todo)
         if total and done != last:
             el = time.monotonic() - start
             eta = f", ETA {format_duration(el / done * (total - done))}" if 0 < done < total else ""

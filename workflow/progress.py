@@ -16,10 +16,10 @@ import json
 import re
 from pathlib import Path
 
+from .casefolder import CaseFolder
 from .layout import StudyLayout
 
 _RE_LINE = re.compile(r"\[@\s*([0-9.]+)s\]\s*Timestep:\s*(\d+).*?Energy:\s*~?\s*[0-9.eE+-]+\s*\(\s*-?\s*([0-9.]+)\s*dB\)")
-SCRATCH = ".engine_run"
 #: bytes read from the end of a console log (the last progress line is there)
 TAIL_BYTES = 4096
 
@@ -43,14 +43,14 @@ def last_progress(console_log: Path) -> dict | None:
 
 def _estimates(layout: StudyLayout) -> dict:
     try:
-        return json.loads((layout.root / "cost_estimates.json").read_text()).get("cases") or {}
+        return json.loads(layout.cost_file.read_text()).get("cases") or {}
     except (OSError, ValueError):
         return {}
 
 
 def _end_dB(case_dir: Path) -> float | None:
     try:
-        v = json.loads((case_dir / "case.json").read_text())["solver"].get("end_criterion_dB")
+        v = CaseFolder(case_dir).read_case_strict()["solver"].get("end_criterion_dB")
         return float(v) if v is not None else None
     except (OSError, ValueError, KeyError, TypeError):
         return None
@@ -73,15 +73,16 @@ def running_progress(layout: StudyLayout, entries: list[dict]) -> list[str]:
     out = []
     for e in entries:
         cid = e["case_id"]
-        cdir = layout.case_dir(cid)
-        if (cdir / "metrics.json").exists():
+        case = CaseFolder(layout.case_dir(cid))
+        cdir = case.dir
+        if case.has_metrics():
             continue
         for p in e.get("ports", [1]):
             # the excitation runs in the case's solve folder of the store (link ``solve``)
-            xdir = (cdir / "solve" if (cdir / "solve").is_dir() else cdir) / f"excite_{p}"
-            if (xdir / "status.json").exists():
+            x = case.solve_folder().excitation(p)
+            if x.status_file.exists():
                 continue
-            prog = last_progress(xdir / SCRATCH / "console.log")
+            prog = last_progress(x.scratch / "console.log")
             if prog is None:
                 continue
             total = (est.get(cid) or {}).get("timesteps")

@@ -7,7 +7,6 @@ names a baseline, each case's difference from it (also as ``report/baseline_comp
 """
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 
@@ -15,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from .atomic import atomic_path, write_text
+from .casefolder import CaseFolder
 from .collect import WARNING_SEPARATOR
 from .layout import StudyLayout, read_plan
 from .report_plots import (FINISHED, MAX_BARS, MAX_IMPEDANCE_CASES, finished, plot_cases_overview,  # noqa: F401
@@ -87,7 +87,7 @@ def best_case(summary: pd.DataFrame) -> pd.Series | None:
 
 def _case_solver(layout: StudyLayout, cid: str) -> dict:
     try:
-        return json.loads((layout.case_dir(cid) / "case.json").read_text()).get("solver") or {}
+        return CaseFolder(layout.case_dir(cid)).read_case_strict().get("solver") or {}
     except (OSError, ValueError):
         return {}
 
@@ -343,7 +343,7 @@ def write_report(layout: StudyLayout) -> Path:
             shown = [(base_pair[0], "case"), (base_pair[1], "its baseline")]
             if str(best["case_id"]) not in base_pair:
                 shown.insert(0, (str(best["case_id"]), "best case"))
-        rows = [(layout.case_dir(c) / "result.h5", f"{what_} {c} ({lab(c)})") for c, what_ in shown]
+        rows = [(CaseFolder(layout.case_dir(c)).result_file, f"{what_} {c} ({lab(c)})") for c, what_ in shown]
         caption = f"SAR through the peak of the best case `{best['case_id']}`"
         if base_pair:
             caption = (f"SAR through the peak: `{base_pair[0]}` beside its baseline `{base_pair[1]}`"

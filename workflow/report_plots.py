@@ -228,14 +228,10 @@ def read_sar_volume(result_h5: Path, name: str = "local"):
 
     Returns ``(sar (nx, ny, nz), (x (nx,), y (ny,), z (nz,)))``.
     """
-    import h5py
+    from .casefolder import CaseFolder
 
-    with h5py.File(result_h5, "r") as h5:
-        if "sar" not in h5 or name not in h5["sar"]:
-            raise KeyError(f"{result_h5}: no SAR volume sar/{name}")
-        g = h5["sar"]
-        sar = g[name][()].astype(float)
-        edges = [g[f"{a}_edges_m"][()] for a in "xyz"]
+    vol = CaseFolder(Path(result_h5).parent).read_sar(name)
+    sar, edges = vol["values"], vol["edges"]
     centres = tuple(0.5 * (e[1:] + e[:-1]) for e in edges)
     if tuple(c.size for c in centres) != sar.shape:
         raise ValueError(f"{result_h5}: SAR shape {sar.shape} does not match the grid {[c.size for c in centres]}")

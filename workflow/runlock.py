@@ -32,13 +32,12 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+from .casefolder import SCRATCH_DIR, SolveFolder
 from .layout import StudyLayout
 
 LOCK_NAME = "run.lock"
 #: environment variable naming the ``bodysweep run`` that started a Snakemake process
 PARENT_ENV = "BODYSWEEP_RUN_PID"
-#: the engine's scratch folder inside ``excite_<p>/`` (see :mod:`.solver.run`)
-SCRATCH_NAME = ".engine_run"
 
 
 class StudyBusy(RuntimeError):
@@ -286,8 +285,9 @@ def stale_temporaries(layout: StudyLayout) -> list[Path]:
     """Leftover atomic-write temporaries and engine scratch folders below the study's folder."""
     if not layout.root.is_dir():
         return []
-    tmp = [p for p in layout.root.rglob(".*.part*") if p.is_file() and SCRATCH_NAME not in p.parts]
-    scratch = sorted(layout.cases_dir.glob(f"*/excite_*/{SCRATCH_NAME}")) if layout.cases_dir.is_dir() else []
+    tmp = [p for p in layout.root.rglob(".*.part*") if p.is_file() and SCRATCH_DIR not in p.parts]
+    scratch = ([d for c in sorted(layout.cases_dir.iterdir()) for d in SolveFolder(c).scratch_dirs() if d.name == SCRATCH_DIR]
+               if layout.cases_dir.is_dir() else [])
     return sorted(tmp) + scratch
 
 

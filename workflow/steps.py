@@ -17,7 +17,8 @@ import time
 import traceback
 from pathlib import Path
 
-from .atomic import atomic_path, json_text, write_if_changed, write_json
+from .atomic import atomic_path
+from .casefolder import CaseFolder, SolveFolder
 from .layout import StudyLayout
 
 FAILED = "failed"
@@ -26,11 +27,6 @@ FAILED = "failed"
 def _one_line(exc: BaseException) -> str:
     text = " ".join(f"{type(exc).__name__}: {exc}".split())
     return text[:500]
-
-
-def _read(path: Path) -> dict:
-    with open(path, "rb") as fh:
-        return json.load(fh)
 
 
 def _failed(d: dict | None) -> bool:
@@ -52,11 +48,6 @@ def _placeholder_png(path: Path, text: str) -> None:
 
 
 # -- scene ---------------------------------------------------------------------------------------------
-def _inputs(folder: Path) -> dict:
-    """``solve.json`` of a solve folder in the store, else ``case.json`` of a case folder."""
-    return _read(folder / "solve.json") if (folder / "solve.json").exists() else _read(folder / "case.json")
-
-
 def build_scene(case_dir: str | Path) -> dict:
     """Build the scene at its frequency: ``scene.json`` (``SceneModel.to_dict()``) and ``preview.png``.
 
@@ -66,33 +57,45 @@ def build_scene(case_dir: str | Path) -> dict:
     """
     from .store import solve_lock
 
-    case_dir = Path(case_dir)
-    case = _inputs(case_dir)
-    with solve_lock(case_dir):  # not while a solve job of another study's run works in this folder
-        return _build_scene_locked(case_dir, case)
+    folder = SolveFolder(case_dir)
+    case = folder.read_inputs()
+    with solve_lock(folder.dir):  # not while a solve job of another study's run works in this folder
+        return _build_scene_locked(folder, case)
 
 
-def _build_scene_locked(case_dir: Path, case: dict) -> dict:
+def _build_scene_locked(folder: SolveFolder, case: dict) -> dict:
     try:
         from bodysweep.geometry.scene import Scene
 
         model = Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))
         out = model.to_dict()
-        write_json(case_dir / "scene.json", out)
+        folder.write_scene(out)
+        _store_mesh(folder, model)
         try:
             from bodysweep.geometry.preview import preview_png
 
-            with atomic_path(case_dir / "preview.png") as tmp:
+            with atomic_path(folder.preview_file) as tmp:
                 preview_png(model, tmp)
         except Exception as exc:  # a preview problem is not a case failure
-            _placeholder_png(case_dir / "preview.png", f"preview failed: {_one_line(exc)}")
+            _placeholder_png(folder.preview_file, f"preview failed: {_one_line(exc)}")
         return out
     except Exception as exc:
         traceback.print_exc()
         out = {"status": FAILED, "reason": f"scene: {_one_line(exc)}"}
-        write_json(case_dir / "scene.json", out)
-        _placeholder_png(case_dir / "preview.png", out["reason"])
+        folder.write_scene(out)
+        _placeholder_png(folder.preview_file, out["reason"])
         return out
+
+
+def _store_mesh(folder: SolveFolder, model) -> None:
+    """Mesh the solve once and store it (unless a stage did already); a refusal is stored for the solve
+    step to report, it is not a scene failure."""
+    from .estimate import solve_estimate
+
+    try:
+        solve_estimate(folder.dir, model=model)
+    except Exception as exc:  # reported by the solve step, which meets the same refusal
+        print(f"mesh not stored: {_one_line(exc)}")
 
 
 # -- solve ---------------------------------------------------------------------------------------------
@@ -113,7 +116,7 @@ def solve(case_dir: str | Path, port: int, threads: int = 1) -> dict:
         if kept is not None:
             print(f"excitation of port {port} already solved in {case_dir}: taken as it is")
             # same content keeps the file and its modification time (finished cases stay finished)
-            write_if_changed(case_dir / f"excite_{int(port)}" / "status.json", json_text(kept))
+            SolveFolder(case_dir).excitation(port).restore_status(kept)
             return kept
         out = _solve_unlocked(case_dir, port, threads)
         keep_outcome(case_dir, port, out)
@@ -121,17 +124,18 @@ def solve(case_dir: str | Path, port: int, threads: int = 1) -> dict:
 
 
 def _solve_unlocked(case_dir: Path, port: int, threads: int) -> dict:
-    status_path = case_dir / f"excite_{int(port)}" / "status.json"
+    folder = SolveFolder(case_dir)
+    exc_folder = folder.excitation(port)
     scene = None
     try:
-        scene = _read(case_dir / "scene.json")
+        scene = folder.read_scene_strict()
     except FileNotFoundError:  # removed meanwhile by another study's scene job: the solver builds it itself
         scene = None
     except (OSError, ValueError) as exc:
-        scene = {"status": FAILED, "reason": f"scene.json unreadable: {_one_line(exc)}"}
+        scene = {"status": FAILED, "reason": f"{folder.scene_file.name} unreadable: {_one_line(exc)}"}
     if _failed(scene):
         out = {"status": FAILED, "reason": scene.get("reason", "scene failed"), "port": int(port)}
-        write_json(status_path, out)
+        exc_folder.write_status(out)
         return out
     t0 = time.monotonic()
     try:
@@ -142,14 +146,14 @@ def _solve_unlocked(case_dir: Path, port: int, threads: int) -> dict:
         traceback.print_exc()
         out = {"status": FAILED, "reason": f"solve port {port}: {_one_line(exc)}", "port": int(port),
                "runtime_s": time.monotonic() - t0}
-        write_json(status_path, out)
+        exc_folder.write_status(out)
         return out
     try:
-        return _read(status_path)
+        return exc_folder.read_status_strict()
     except (OSError, ValueError) as exc:
-        out = {"status": FAILED, "reason": f"solve port {port}: no readable status.json ({_one_line(exc)})",
-               "port": int(port)}
-        write_json(status_path, out)
+        out = {"status": FAILED, "reason": f"solve port {port}: no readable {exc_folder.status_file.name} "
+               f"({_one_line(exc)})", "port": int(port)}
+        exc_folder.write_status(out)
         return out
 
 
@@ -160,31 +164,32 @@ def finish(case_dir: str | Path, ports: list[int], solve_dir: str | Path | None 
     ``solve_dir``: the case's solve folder in the store (default: the case folder itself). When an
     excitation failed, ``metrics.json`` is a failure record carrying that excitation's reason.
     """
-    case_dir = Path(case_dir)
-    solve_dir = Path(solve_dir) if solve_dir is not None else case_dir
-    case = _read(case_dir / "case.json")
-    base = {"case_id": case.get("case_id"), "frequency_Hz": case.get("frequency_Hz")}
+    case = CaseFolder(case_dir)
+    solve = SolveFolder(solve_dir if solve_dir is not None else case.dir)
+    content = case.read_case_strict()
+    base = {"case_id": content.get("case_id"), "frequency_Hz": content.get("frequency_Hz")}
     from .store import kept_outcome
 
     for p in ports:
+        exc = solve.excitation(p)
         try:
             # a status another study's rerun of the job removed a moment ago is still kept as the outcome
-            st = kept_outcome(solve_dir, p) or _read(solve_dir / f"excite_{int(p)}" / "status.json")
-        except (OSError, ValueError) as exc:
-            st = {"status": FAILED, "reason": f"excite_{p}/status.json unreadable: {_one_line(exc)}"}
+            st = kept_outcome(solve.dir, p) or exc.read_status_strict()
+        except (OSError, ValueError) as err:
+            st = {"status": FAILED, "reason": f"{exc.label} unreadable: {_one_line(err)}"}
         if _failed(st):
             out = {**base, "status": FAILED, "reason": str(st.get("reason", f"excitation of port {p} failed"))}
-            write_json(case_dir / "metrics.json", out)
+            case.write_metrics(out)
             return out
     try:
-        from .solver.case import finish_case
+        from .finish import finish_case
 
-        finish_case(case_dir, solve_dir)
-        out = _read(case_dir / "metrics.json")
+        finish_case(case.dir, solve.dir)
+        out = case.read_metrics_strict()
     except Exception as exc:
         traceback.print_exc()
         out = {**base, "status": FAILED, "reason": f"finish: {_one_line(exc)}"}
-        write_json(case_dir / "metrics.json", out)
+        case.write_metrics(out)
     return out
 
 

@@ -32,15 +32,13 @@ import shutil
 from pathlib import Path
 from typing import Iterable, Iterator
 
-from .atomic import json_text, write_if_changed, write_json
-from .layout import DEFAULT_STORE_NAME
+from .atomic import json_text, write_if_changed
+from .casefolder import SCRATCH_DIR, SOLVE_FILE, SolveFolder, read_json
+from .layout import DEFAULT_STORE_NAME, StudyLayout
 
 #: environment variable naming the store folder (overridden by ``--solve-store``)
 STORE_ENV = "BODYSWEEP_SOLVE_STORE"
 REFS = "_refs"
-LOCK = ".lock"
-SOLVE_FILE = "solve.json"
-OUTCOME = "outcome.json"
 _ID = re.compile(r"^[0-9a-f]{12}$")
 
 
@@ -65,7 +63,7 @@ def solve_record(case: dict) -> dict:
 
 def write_solve_record(root: Path, case: dict) -> bool:
     """Write ``<root>/<solve_id>/solve.json`` if missing or different; True if written."""
-    return write_if_changed(Path(root) / case["solve_id"] / SOLVE_FILE, json_text(solve_record(case)))
+    return SolveFolder(Path(root) / case["solve_id"]).write_record(solve_record(case))
 
 
 def _ref_path(root: Path, study_root: Path) -> Path:
@@ -79,9 +77,8 @@ def register_study(root: Path, study_root: Path) -> None:
 
 
 def _plan_solve_ids(study_root: Path) -> set[str] | None:
-    try:
-        plan = json.loads((Path(study_root) / "plan.json").read_text())
-    except (FileNotFoundError, ValueError):
+    plan = read_json(StudyLayout(Path(study_root)).plan_file)
+    if plan is None:
         return None
     return {e["solve_id"] for e in plan.get("cases", []) if e.get("solve_id")}
 
@@ -123,7 +120,7 @@ def solve_lock(solve_dir: Path, wait: bool = True) -> Iterator[bool]:
     """Hold the solve folder's ``flock`` (yields False without waiting if ``wait`` is off and it is held)."""
     solve_dir = Path(solve_dir)
     solve_dir.mkdir(parents=True, exist_ok=True)
-    fd = os.open(solve_dir / LOCK, os.O_RDWR | os.O_CREAT, 0o666)
+    fd = os.open(SolveFolder(solve_dir).lock_file, os.O_RDWR | os.O_CREAT, 0o666)
     try:
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | (0 if wait else fcntl.LOCK_NB))
@@ -137,62 +134,47 @@ def solve_lock(solve_dir: Path, wait: bool = True) -> Iterator[bool]:
         os.close(fd)
 
 
-def _read(path: Path) -> dict | None:
-    try:
-        return json.loads(Path(path).read_text())
-    except (FileNotFoundError, ValueError):
-        return None
-
-
-def excitation_files(port: int) -> tuple[str, ...]:
-    """Files a successful excitation of ``port`` leaves beside its status."""
-    return ("signals.h5", "fields_raw.h5") if int(port) == 1 else ("signals.h5",)
-
-
 def kept_outcome(solve_dir: Path, port: int) -> dict | None:
     """A finished, successful excitation of ``port`` already in the store (its status), else None.
 
     The status file when present and ok; otherwise ``outcome.json`` when ok and the files it describes
     are all present (Snakemake removes a job's output, ``status.json``, before it reruns the job).
     """
-    exc = Path(solve_dir) / f"excite_{int(port)}"
-    for name in ("status.json", OUTCOME):
-        st = _read(exc / name)
-        if st is not None and st.get("status") == "ok" and all((exc / f).exists() for f in excitation_files(port)):
+    exc = SolveFolder(solve_dir).excitation(port)
+    for st in (exc.read_status(), exc.read_outcome()):
+        if st is not None and st.get("status") == "ok" and not exc.missing_results():
             return st
     return None
 
 
 def keep_outcome(solve_dir: Path, port: int, status: dict) -> None:
     """Copy an excitation's status to ``outcome.json`` (after ``status.json`` is in place)."""
-    write_json(Path(solve_dir) / f"excite_{int(port)}" / OUTCOME, status)
+    SolveFolder(solve_dir).excitation(port).keep_outcome(status)
 
 
 def solve_state(solve_dir: Path, ports: Iterable[int]) -> str:
     """``solved`` (every port has a status, ok or failed, or a kept outcome), else ``missing``."""
-    d = Path(solve_dir)
+    d = SolveFolder(solve_dir)
     for p in ports:
-        if _read(d / f"excite_{int(p)}" / "status.json") is None and kept_outcome(d, p) is None:
+        if d.excitation(p).read_status() is None and kept_outcome(d.dir, p) is None:
             return "missing"
     return "solved"
 
 
 def reset_failed_solve(solve_dir: Path, ports: Iterable[int]) -> bool:
     """Remove the failed excitations (and a failed scene) of a solve so that the next run solves them again."""
-    d = Path(solve_dir)
+    d = SolveFolder(solve_dir)
     done = False
-    with solve_lock(d):
-        sc = _read(d / "scene.json")
+    with solve_lock(d.dir):
+        sc = d.read_scene()
         if sc is not None and sc.get("status") == "failed":
-            for n in ("scene.json", "preview.png"):
-                (d / n).unlink(missing_ok=True)
+            d.remove_scene()
             done = True
         for p in ports:
-            exc = d / f"excite_{int(p)}"
-            st = _read(exc / "status.json") or _read(exc / OUTCOME)
+            exc = d.excitation(p)
+            st = exc.read_status() or exc.read_outcome()
             if st is not None and st.get("status") != "ok":
-                for n in ("status.json", OUTCOME):
-                    (exc / n).unlink(missing_ok=True)
+                exc.remove_status()
                 done = True
     return done
 
@@ -201,29 +183,28 @@ def verify_solve(root: Path, solve_id: str, ports: Iterable[int]) -> list[str]:
     """Problems of one stored solve: ``solve.json`` hashing to its folder name, scene, excitation files."""
     from .study.identity import content2case_id
 
-    d = Path(root) / solve_id
+    folder = SolveFolder(Path(root) / solve_id)
     where = f"solve {solve_id}"
-    if not d.is_dir():
+    if not folder.dir.is_dir():
         return [f"{where}: folder missing in the store {root}"]
-    rec = _read(d / SOLVE_FILE)
+    rec = folder.read_record()
     if rec is None:
         return [f"{where}: {SOLVE_FILE} missing or unreadable"]
     out = []
     content = {k: v for k, v in rec.items() if k != "solve_id"}
     if content2case_id(content) != solve_id or rec.get("solve_id") != solve_id:
         out.append(f"{where}: {SOLVE_FILE} hashes to {content2case_id(content)}, not to its folder name")
-    for n in ("scene.json", "preview.png"):
-        if not (d / n).exists():
-            out.append(f"{where}: {n} missing")
+    for f in folder.built_files():
+        if not f.exists():
+            out.append(f"{where}: {f.name} missing")
     for p in ports:
-        exc = d / f"excite_{int(p)}"
-        st = _read(exc / "status.json")
+        exc = folder.excitation(p)
+        st = exc.read_status()
         if st is None:
-            out.append(f"{where}: excite_{p}/status.json missing")
+            out.append(f"{where}: {exc.label} missing")
             continue
         if st.get("status") == "ok":
-            out += [f"{where}: status ok but excite_{p}/{f} missing" for f in excitation_files(p)
-                    if not (exc / f).exists()]
+            out += [f"{where}: status ok but {exc.dir.name}/{f} missing" for f in exc.missing_results()]
     return out
 
 
@@ -233,8 +214,8 @@ def clear_solve_leftovers(solve_dir: Path) -> int:
     with solve_lock(d, wait=False) as got:
         if not got:
             return 0
-        found = [p for p in d.rglob(".*.part*") if p.is_file() and ".engine_run" not in str(p)]
-        found += sorted(d.glob("excite_*/.engine_run*"))
+        found = [p for p in d.rglob(".*.part*") if p.is_file() and SCRATCH_DIR not in str(p)]
+        found += SolveFolder(d).scratch_dirs()
         for p in found:
             if p.is_dir():
                 shutil.rmtree(p, ignore_errors=True)

@@ -5,13 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from .casefolder import CaseFolder, SolveFolder
 from .layout import StudyLayout, read_plan
-from .pipeline import OK_STATUSES, read_json
+from .pipeline import OK_STATUSES
 from .study.cases import case_identities
-
-#: files every case folder has once its case ran (ok or not), and those only a finished case has
-ALWAYS = ("case.json", "metrics.json")
-ON_SUCCESS = ("result.h5", "sparams.s2p")
 
 
 def case_json2case_id(case: dict) -> str:
@@ -22,49 +19,46 @@ def case_json2case_id(case: dict) -> str:
 def verify_case(layout: StudyLayout, entry: dict, store=None) -> list[str]:
     """Problems of one case folder (empty list: consistent)."""
     cid = entry["case_id"]
-    d = layout.case_dir(cid)
+    folder = CaseFolder(layout.case_dir(cid))
+    cj = folder.case_file.name
     out = []
-    if not d.is_dir():
+    if not folder.dir.is_dir():
         return [f"{cid}: case folder missing"]
-    for name in ALWAYS:
-        if not (d / name).exists():
-            out.append(f"{cid}: {name} missing")
-    case = read_json(d / "case.json")
+    for f in (folder.case_file, folder.metrics_file):  # every case folder has them once its case ran
+        if not f.exists():
+            out.append(f"{cid}: {f.name} missing")
+    case = folder.read_case()
     if case is not None:
         try:
             again = case_json2case_id(case)
         except Exception as exc:
-            out.append(f"{cid}: case.json cannot be hashed ({exc})")
+            out.append(f"{cid}: {cj} cannot be hashed ({exc})")
         else:
             if again != cid:
-                out.append(f"{cid}: case.json content hashes to {again}, not to its folder name")
+                out.append(f"{cid}: {cj} content hashes to {again}, not to its folder name")
         if case.get("case_id") != cid:
-            out.append(f"{cid}: case.json says case_id {case.get('case_id')!r}")
+            out.append(f"{cid}: {cj} says case_id {case.get('case_id')!r}")
         try:
             sid = case_identities(case)[0]
         except Exception:
             sid = None
         if sid is not None and (case.get("solve_id") != sid or entry.get("solve_id") != sid):
-            out.append(f"{cid}: case.json content gives solve id {sid}, case.json / plan.json say "
+            out.append(f"{cid}: {cj} content gives solve id {sid}, {cj} / {layout.plan_file.name} say "
                        f"{case.get('solve_id')!r} / {entry.get('solve_id')!r}")
-    m = read_json(d / "metrics.json")
+    m = folder.read_metrics()
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
-            for name in ON_SUCCESS:
-                if name == "sparams.s2p" and (d / "sparams.s1p").exists() and 2 not in entry.get("ports", [1]):
-                    continue  # one-port file: a scene without implant, or only port 1 excited
-                if not (d / name).exists():
-                    if name == "sparams.s2p" and 2 not in entry.get("ports", [1]):
-                        name = "sparams.s1p"
-                    out.append(f"{cid}: status {m.get('status')} but {name} missing")
+            for name in folder.missing_results(entry.get("ports", [1])):
+                out.append(f"{cid}: status {m.get('status')} but {name} missing")
             if store is not None and entry.get("solve_id"):
-                sd = store / entry["solve_id"]
+                sd = SolveFolder(store / entry["solve_id"])
                 for p in entry.get("ports", [1]):
-                    st = read_json(sd / f"excite_{p}" / "status.json")
+                    exc = sd.excitation(p)
+                    st = exc.read_status()
                     if st is None or st.get("status") != "ok":
-                        out.append(f"{cid}: status {m.get('status')} but its solve's excite_{p}/status.json is "
+                        out.append(f"{cid}: status {m.get('status')} but its solve's {exc.label} is "
                                    f"{'missing' if st is None else st.get('status')}")
-            out += verify_metrics(d, cid, m)
+            out += verify_metrics(folder.dir, cid, m)
         elif not m.get("reason"):
             out.append(f"{cid}: status {m.get('status')!r} without a reason")
     return out
@@ -88,7 +82,9 @@ def verify_metrics(d, cid: str, m: dict) -> list[str]:
     the case's id. A file that cannot be read is reported as such.
     """
     out = []
-    ts = next((d / n for n in ("sparams.s2p", "sparams.s1p") if (d / n).exists()), None)
+    folder = CaseFolder(d)
+    ts = folder.touchstone_file()
+    mj, rh = folder.metrics_file.name, folder.result_file.name
     f0 = m.get("frequency_Hz")
     if ts is not None and f0:
         from .collect import touchstone2arrays
@@ -106,36 +102,34 @@ def verify_metrics(d, cid: str, m: dict) -> list[str]:
                         if v is None or not np.isfinite(S[k, i, j]):
                             continue
                         if not _close(complex(v[0], v[1]), complex(S[k, i, j])):
-                            out.append(f"{cid}: metrics.json S{i + 1}{j + 1} = {complex(v[0], v[1]):.6g} differs from "
+                            out.append(f"{cid}: {mj} S{i + 1}{j + 1} = {complex(v[0], v[1]):.6g} differs from "
                                        f"{ts.name} at {float(f0) / 1e6:g} MHz ({complex(S[k, i, j]):.6g})")
-    res = d / "result.h5"
-    if res.exists():
-        import h5py
-
+    if folder.has_result():
         try:
-            with h5py.File(res, "r") as h5:
-                if str(h5.attrs.get("case_id", cid)) != cid:
-                    out.append(f"{cid}: result.h5 belongs to case {h5.attrs.get('case_id')!r}")
-                for row in m.get("sar") or []:
-                    name = f"avg_{float(row['mass_kg']) * 1e3:g}g"
-                    peak = row.get("peak_W_per_kg_per_W")
-                    if "grid_peak_W_per_kg_per_W" not in row:  # written before post-processing version 3
-                        row = {**row, "grid_peak_W_per_kg_per_W": peak}
-                    grid = row.get("grid_peak_W_per_kg_per_W")
-                    flush = row.get("flush_peak_W_per_kg_per_W")
-                    # the reported peak is the larger of the voxel-grid peak and the best flush cube
-                    larger = max((v for v in (grid, flush) if v is not None), default=None)
-                    if peak is not None and (larger is None or not _close(float(peak), float(larger))):
-                        out.append(f"{cid}: metrics.json peak SAR {row['mass_kg'] * 1e3:g} g = {peak:.6g} W/kg per W "
-                                   f"is not the larger of its grid ({grid}) and flush ({flush}) peaks")
-                    if grid is None or f"sar/{name}" not in h5:
-                        continue
-                    top = float(np.nanmax(h5[f"sar/{name}"][()]))
-                    if not _close(float(grid), top):
-                        out.append(f"{cid}: metrics.json grid peak SAR {row['mass_kg'] * 1e3:g} g = {grid:.6g} W/kg "
-                                   f"per W differs from the maximum of result.h5 sar/{name} ({top:.6g})")
+            owner = folder.read_result_case_id()
+            if owner is not None and owner != cid:
+                out.append(f"{cid}: {rh} belongs to case {owner!r}")
+            names = folder.sar_volume_names()
+            for row in m.get("sar") or []:
+                name = f"avg_{float(row['mass_kg']) * 1e3:g}g"
+                peak = row.get("peak_W_per_kg_per_W")
+                if "grid_peak_W_per_kg_per_W" not in row:  # written before post-processing version 3
+                    row = {**row, "grid_peak_W_per_kg_per_W": peak}
+                grid = row.get("grid_peak_W_per_kg_per_W")
+                flush = row.get("flush_peak_W_per_kg_per_W")
+                # the reported peak is the larger of the voxel-grid peak and the best flush cube
+                larger = max((v for v in (grid, flush) if v is not None), default=None)
+                if peak is not None and (larger is None or not _close(float(peak), float(larger))):
+                    out.append(f"{cid}: {mj} peak SAR {row['mass_kg'] * 1e3:g} g = {peak:.6g} W/kg per W "
+                               f"is not the larger of its grid ({grid}) and flush ({flush}) peaks")
+                if grid is None or name not in names:
+                    continue
+                top = float(np.nanmax(folder.read_sar(name)["values"]))
+                if not _close(float(grid), top):
+                    out.append(f"{cid}: {mj} grid peak SAR {row['mass_kg'] * 1e3:g} g = {grid:.6g} W/kg "
+                               f"per W differs from the maximum of {rh} sar/{name} ({top:.6g})")
         except Exception as exc:
-            out.append(f"{cid}: result.h5 unreadable ({' '.join(str(exc).split())[:200]})")
+            out.append(f"{cid}: {rh} unreadable ({' '.join(str(exc).split())[:200]})")
     return out
 
 

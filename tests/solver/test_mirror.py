@@ -91,7 +91,7 @@ def test_solve_refuses_an_asymmetric_case_with_the_reason(tmp_path):
 
 @pytest.mark.solver
 def test_half_domain_gives_the_full_domain_s_parameters_and_sar(tmp_path):
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     case = _tiny_case()

@@ -10,7 +10,7 @@ import pytest
 
 from bodysweep.geometry.model import SceneModel
 from bodysweep.workflow.solver import ADAPTER_VERSION
-from bodysweep.workflow.solver.case import finish_case
+from bodysweep.workflow.finish import finish_case
 from bodysweep.workflow.solver.run import solve_excitation
 
 from solver_scenes import PEC, dipole, lossy_slab_scene, poynting_flux_run, uniform_plan, write_case
@@ -81,7 +81,7 @@ def test_finish_writes_touchstone_result_and_metrics(two_port_case):
     assert np.allclose(ntw.f, f_band) and np.allclose(ntw.s, S_band, atol=1e-9)
     # the finish step transforms the stored time signals at its own band points; at the solve's points it
     # gives the solve's stored phasors (the same discrete Fourier sum, sparams.dft)
-    from bodysweep.workflow.solver.case import read_excitation
+    from bodysweep.workflow.finish import read_excitation
 
     stored = read_excitation(case / "excite_1")
     again = read_excitation(case / "excite_1", stored["f_band_Hz"])

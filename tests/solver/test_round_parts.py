@@ -49,7 +49,7 @@ def test_thick_wire_dipole_meshes_on_its_real_ends():
 
 @pytest.mark.solver
 def test_thick_wire_dipole_runs(tmp_path):
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     case = {"case_id": "thickwire", "label": "test", "study": "tests", "parameters": {}, "frequency_Hz": F0,

@@ -144,7 +144,7 @@ def test_half_domain_with_a_10_cell_pml_diverges_without_the_fix_and_is_failed(t
 
 @pytest.mark.solver
 def test_half_domain_with_a_10_cell_pml_runs_and_matches_the_full_domain(tmp_path):
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     out = {}

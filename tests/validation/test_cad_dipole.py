@@ -45,7 +45,7 @@ def _scene(stl: str) -> dict:
 
 
 def _run(case_dir: Path, model, plan) -> dict:
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     case_dir.mkdir(parents=True)

@@ -26,7 +26,7 @@ from bodysweep.workflow.post.sar_average import ENCLOSED, FACE, VALID, average_s
 from bodysweep.workflow.post.sar_flush import flush_cube_peak, reported_peak  # noqa: E402
 from bodysweep.workflow.reference.sar_bruteforce import (exact_cube_average_bruteforce,  # noqa: E402
                                                          flush_cube_bruteforce)
-from bodysweep.workflow.solver.case import finish_case  # noqa: E402
+from bodysweep.workflow.finish import finish_case  # noqa: E402
 from bodysweep.workflow.solver.run import solve_excitation  # noqa: E402
 
 pytestmark = [pytest.mark.solver, pytest.mark.validation]

@@ -1,6 +1,6 @@
 rule collect:
     input:
-        expand(f"{CASES}/{{case}}/metrics.json", case=RUN.case_ids),
+        expand(f"{CASES}/{{case}}/{CF.METRICS_FILE}", case=RUN.case_ids),
         RUN.layout.plan_file,
     output:
         RUN.layout.table_files(),

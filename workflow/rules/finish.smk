@@ -1,11 +1,12 @@
 rule finish:
     input:
-        case=f"{CASES}/{{case}}/case.json",
-        solves=lambda wc: [f"{STORE}/{RUN.solve_of(wc.case)}/excite_{p}/status.json" for p in RUN.ports(wc.case)],
+        case=f"{CASES}/{{case}}/{CF.CASE_FILE}",
+        solves=lambda wc: [f"{STORE}/{RUN.solve_of(wc.case)}/{CF.EXCITE_PREFIX}{p}/{CF.STATUS_FILE}"
+                           for p in RUN.ports(wc.case)],
     output:
-        f"{CASES}/{{case}}/metrics.json",
+        f"{CASES}/{{case}}/{CF.METRICS_FILE}",
     log:
-        f"{CASES}/{{case}}/logs/finish.log",
+        f"{CASES}/{{case}}/{CF.LOGS_DIR}/{CF.FINISH_LOG}",
     params:
         ports=lambda wc: " ".join(str(p) for p in RUN.ports(wc.case)),
         solve=lambda wc: f"{STORE}/{RUN.solve_of(wc.case)}",

@@ -1,9 +1,9 @@
 rule scene:
     input:
-        f"{STORE}/{{solve}}/solve.json",
+        f"{STORE}/{{solve}}/{CF.SOLVE_FILE}",
     output:
-        scene=f"{STORE}/{{solve}}/scene.json",
-        preview=f"{STORE}/{{solve}}/preview.png",
+        scene=f"{STORE}/{{solve}}/{CF.SCENE_FILE}",
+        preview=f"{STORE}/{{solve}}/{CF.PREVIEW_FILE}",
     log:
         f"{STORE}/{{solve}}/logs/scene.log",
     shell:

@@ -2,10 +2,10 @@ from bodysweep.workflow.cluster import cluster_resources, cluster_threads
 
 rule solve:
     input:
-        case=f"{STORE}/{{solve}}/solve.json",
-        scene=f"{STORE}/{{solve}}/scene.json",
+        case=f"{STORE}/{{solve}}/{CF.SOLVE_FILE}",
+        scene=f"{STORE}/{{solve}}/{CF.SCENE_FILE}",
     output:
-        f"{STORE}/{{solve}}/excite_{{port}}/status.json",
+        f"{STORE}/{{solve}}/{CF.EXCITE_PREFIX}{{port}}/{CF.STATUS_FILE}",
     log:
         f"{STORE}/{{solve}}/logs/solve_{{port}}.log",
     # On a cluster (non-local executor) threads, memory and time limit come from the case's cost

@@ -1,8 +1,9 @@
 """Solver adapter: the only part of bodysweep that imports openEMS (in :mod:`.engine`).
 
 Modules: ``engine`` (engine access, log parsing), ``build`` (scene + mesh -> CSXCAD structure),
-``ports`` (own lumped ports and probe reading), ``run`` (one excitation in a child process),
-``case`` (finish a case: S-matrix, SAR, link budget, outputs).
+``ports`` (own lumped ports and probe reading), ``run`` (one excitation in a child process), and the
+solver-neutral meshing and cost estimate (``mesh``, ``mesh_fill``, ``cost``, ``settings``). Finishing a case
+(S-matrix, SAR, link budget) reads only the case folder and lives in :mod:`bodysweep.workflow.finish`.
 """
 
 #: bump when a change here alters results (part of every case identity)

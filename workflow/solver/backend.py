@@ -54,11 +54,9 @@ class OpenEMSBackend:
     name = "openEMS"
 
     def mesh(self, model: "SceneModel", settings: "SolverSettings") -> "MeshPlan":
-        from .mesh import auto_mesh, check_mesh
+        from .mesh import checked_mesh
 
-        plan = auto_mesh(model, settings)
-        check_mesh(plan, model, settings)  # a mesh the solve step would refuse is refused here already
-        return plan
+        return checked_mesh(model, settings)  # a mesh the solve step would refuse is refused here already
 
     def estimate(self, plan: "MeshPlan", model: "SceneModel", settings: "SolverSettings") -> "CostEstimate":
         from .cost import estimate

@@ -507,3 +507,10 @@ def check_mesh(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> N
             j = int(np.argmax(rr))
             raise MeshRefused(f"{a}: neighbour cell ratio {r:.3f} exceeds max_growth_ratio "
                               f"{settings.max_growth_ratio} at lines {', '.join(f'{v*1e3:.4f}' for v in ln[j:j+3])} mm")
+
+
+def checked_mesh(model: SceneModel, settings: SolverSettings) -> MeshPlan:
+    """The automatic mesh of a scene, refused (:class:`MeshRefused`) as the solve step would refuse it."""
+    plan = auto_mesh(model, settings)
+    check_mesh(plan, model, settings)
+    return plan

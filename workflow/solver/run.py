@@ -24,12 +24,14 @@ or mesh refused, engine error, energy decay not reached, field energy NaN or gro
 than its excitation pulse (see :mod:`.health`), NaN in the port signals, child crash or timeout)
 gives a ``failed`` status with the reason and does not raise.
 
-Inputs read from the folder (a solve folder of the store, or a case folder): ``solve.json`` if present,
-else ``case.json`` (``frequency_Hz``, ``solver``, ``scene``; the averaging masses of the engine's own SAR
-from ``engine_sar_masses_kg``, or ``sar.masses_kg`` of a ``case.json``),
-``scene.json`` when present (the built scene; else the scene is built from ``case.json``), and an
-optional ``mesh_plan.json`` (``lines_x``, ``lines_y``, ``lines_z``, ``interior_bounds``, metres)
-that replaces the automatic mesh (hand meshes, tests).
+Inputs read from the folder (a solve folder of the store, or a case folder), all through
+:class:`bodysweep.workflow.casefolder.SolveFolder`: ``solve.json`` if present, else ``case.json``
+(``frequency_Hz``, ``solver``, ``scene``; the averaging masses of the engine's own SAR from
+``engine_sar_masses_kg``, or ``sar.masses_kg`` of a ``case.json``), ``scene.json`` when present (the
+built scene; else the scene is built from the inputs), the stored mesh ``mesh.json``
+(:mod:`bodysweep.workflow.meshrecord`; meshed and stored here when missing or stale), and an optional
+hand mesh ``mesh_plan.json`` (``lines_x``, ``lines_y``, ``lines_z``, ``interior_bounds``, metres) that
+replaces the automatic one (hand meshes, tests).
 """
 from __future__ import annotations
 
@@ -45,6 +47,8 @@ from types import SimpleNamespace
 
 import numpy as np
 
+from bodysweep.workflow.casefolder import SolveFolder
+
 from .child import CHILD_ERROR as _CHILD_ERROR
 from .cost import excitation_pulse
 from .child import DIVERGED_RC as _DIVERGED_RC
@@ -56,8 +60,6 @@ __all__ = ["solve_excitation", "solve_solver_sar", "excitation_pulse", "load_cas
 SAR_DUMP_NAME = "sar_raw"
 SOLVER_SAR_NAMES = {0.001: "sar_avg_1g", 0.01: "sar_avg_10g"}
 _CHILD_SETUP = "child_setup.json"
-_SCRATCH = ".engine_run"
-_SOLVER_SAR_FILES = ("solver_sar.h5", "solver_sar_status.json", "solver_sar.log")
 
 
 # ------------------------------------------------------------------------------------------------
@@ -66,25 +68,9 @@ def _one_line(text: str, limit: int = 500) -> str:
     return " ".join(str(text).split())[:limit]
 
 
-def _write_json(path: Path, data: dict) -> None:
-    from bodysweep.workflow.atomic import write_json
-
-    write_json(path, data)
-
-
-def _atomic(path: Path):
-    from bodysweep.workflow.atomic import atomic_path
-
-    return atomic_path(path)
-
-
-def _inputs_name(case_dir) -> str:
-    return "solve.json" if (Path(case_dir) / "solve.json").exists() else "case.json"
-
-
 def _inputs(case_dir) -> dict:
     """The folder's inputs: ``solve.json`` (a solve of the store) or ``case.json`` (a case folder)."""
-    return json.loads((Path(case_dir) / _inputs_name(case_dir)).read_text())
+    return SolveFolder(case_dir).read_inputs()
 
 
 def _engine_sar_masses(case: dict) -> list:
@@ -105,33 +91,33 @@ def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
 
     from .settings import settings_from_dict
 
-    case_dir = Path(case_dir)
-    case = _inputs(case_dir)
+    folder = SolveFolder(case_dir)
+    case = folder.read_inputs()
     f0 = float(case["frequency_Hz"])
     if not (np.isfinite(f0) and f0 > 0):
-        raise ValueError(f"{_inputs_name(case_dir)} frequency_Hz must be a positive number, got {case['frequency_Hz']!r}")
+        raise ValueError(f"{folder.inputs_file.name} frequency_Hz must be a positive number, got {case['frequency_Hz']!r}")
     settings = settings_from_dict(case.get("solver") or {})
-    scene_file = case_dir / "scene.json"
-    if scene_file.exists():
-        d = json.loads(scene_file.read_text())
+    if folder.scene_file.exists():
+        d = folder.read_scene_strict()
         if d.get("status") == "failed":
-            raise ValueError(f"scene.json is a failure record: {d.get('reason')}")
+            raise ValueError(f"{folder.scene_file.name} is a failure record: {d.get('reason')}")
         model = SceneModel.from_dict(d)
     else:
         from bodysweep.geometry.scene import Scene
 
         model = Scene.from_dict(case["scene"]).build(f0)
-    plan_file = case_dir / "mesh_plan.json"
-    if plan_file.exists():
-        p = json.loads(plan_file.read_text())
+    p = folder.read_hand_mesh()
+    if p is not None:
         plan = SimpleNamespace(lines_x=np.asarray(p["lines_x"], float), lines_y=np.asarray(p["lines_y"], float),
                                lines_z=np.asarray(p["lines_z"], float),
                                interior_bounds=(tuple(p["interior_bounds"][0]), tuple(p["interior_bounds"][1])))
-    else:
-        from .mesh import auto_mesh, check_mesh
+    else:  # the solve's stored mesh (meshed and stored now if no stage did it before)
+        from bodysweep.workflow.meshrecord import stored_mesh
 
-        plan = auto_mesh(model, settings)
-        check_mesh(plan, model, settings)
+        from .cost import estimate
+        from .mesh import checked_mesh
+
+        plan = stored_mesh(folder, checked_mesh, estimate, model=model, inputs=case)[0]
     return case, model, settings, plan
 
 
@@ -155,7 +141,7 @@ def _child(case_dir: Path, port: int, threads: int, work: Path, mode: str) -> in
 
             mirror.check_symmetric(model, half)
             first = float(np.asarray(getattr(plan, f"lines_{half}"), float)[0])
-            if first != 0.0:  # a hand mesh (mesh_plan.json) must end on the wall as auto_mesh does
+            if first != 0.0:  # a hand mesh must end on the wall as auto_mesh does
                 raise ValueError(f"mirror_plane {half}: the mesh must start at the wall {half} = 0; its first "
                                  f"{half} line is at {first * 1e3:g} mm")
             walls = mirror.half_boundaries(walls, half)
@@ -257,39 +243,6 @@ def centres2edges(centres, lines) -> np.ndarray:
     return edges
 
 
-def _write_fields(path: Path, arrays: dict, attrs: dict) -> None:
-    import h5py
-
-    with _atomic(path) as tmp:
-        with h5py.File(tmp, "w") as h5:
-            for k, v in arrays.items():
-                if np.ndim(v) >= 3:
-                    h5.create_dataset(k, data=v, compression="gzip", compression_opts=4)
-                else:
-                    h5.create_dataset(k, data=v)
-            for k, v in attrs.items():
-                h5.attrs[k] = v
-
-
-def _write_signals(path: Path, port_data: list[dict], f_band: np.ndarray, f0: float, attrs: dict) -> None:
-    import h5py
-
-    with _atomic(path) as tmp:
-        with h5py.File(tmp, "w") as h5:
-            h5.create_dataset("f_band_Hz", data=f_band)
-            for k, v in attrs.items():
-                h5.attrs[k] = v
-            h5.attrs["frequency_Hz"] = f0
-            for d in port_data:
-                g = h5.create_group(f"port{d['number']}")
-                for k in ("t_voltage_s", "voltage_V", "t_current_s", "current_A", "V_band", "I_band"):
-                    g.create_dataset(k, data=d[k])
-                g.attrs["V_f0"] = d["V_f0"]
-                g.attrs["I_f0"] = d["I_f0"]
-                g.attrs["impedance_ohm"] = d["impedance_ohm"]
-                g.attrs["excited"] = d["excited"]
-
-
 def _wants_engine_sar(case_dir: Path) -> bool:
     """The case's ``solver.engine_sar_average`` setting (False if unreadable)."""
     try:
@@ -339,14 +292,14 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
     t0 = time.monotonic()
     case_dir = Path(case_dir).resolve()
     port = int(port)
-    out_dir = case_dir / f"excite_{port}"
-    out_dir.mkdir(parents=True, exist_ok=True)
-    work = out_dir / _SCRATCH
+    exc = SolveFolder(case_dir).excitation(port)
+    exc.dir.mkdir(parents=True, exist_ok=True)
+    work = exc.scratch
     shutil.rmtree(work, ignore_errors=True)
     work.mkdir(parents=True)
     if port == 1:  # results of the engine's own averaging belong to the previous run of port 1
-        for name in _SOLVER_SAR_FILES:
-            (out_dir / name).unlink(missing_ok=True)
+        for f in exc.engine_sar_files():
+            f.unlink(missing_ok=True)
     if threads is None:
         threads = _settings_threads(case_dir)
     status: dict = {"status": "failed", "reason": None, "port": port, "runtime_s": None, "cells": None,
@@ -396,7 +349,7 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
             finite = all(np.all(np.isfinite(d[k])) for d in port_data for k in ("voltage_V", "current_A"))
             attrs = {"timesteps": int(info["timesteps"] or 0), "decay_reached": decay, "excited_port": port,
                      "pulse_f0_Hz": setup["pulse_f0_Hz"], "pulse_fc_Hz": setup["pulse_fc_Hz"]}
-            _write_signals(out_dir / "signals.h5", port_data, f_band, f0, attrs)
+            exc.write_signals(port_data, f_band, f0, attrs)
             if verdict["reason"]:  # diverged, grew or truncated: the signals stay for inspection only
                 reason = verdict["reason"]
             elif not finite:
@@ -420,22 +373,20 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
                     if not np.all(np.isfinite(arrays["E_V_per_m"])):
                         reason = "raw SAR dump contains NaN or infinity"
                     else:
-                        _write_fields(out_dir / "fields_raw.h5", arrays, {"excited_port": port})
+                        exc.write_fields(arrays, {"excited_port": port})
         status["reason"] = reason
         status["status"] = "ok" if reason is None else "failed"
-    except Exception as exc:  # an unexpected problem while reading results: record it, do not raise
+    except Exception as err:  # an unexpected problem while reading results: record it, do not raise
         traceback.print_exc()
         status["status"] = "failed"
-        status["reason"] = _one_line(f"reading results: {type(exc).__name__}: {exc}")
+        status["reason"] = _one_line(f"reading results: {type(err).__name__}: {err}")
     finally:
         try:
-            from bodysweep.workflow.atomic import write_text
-
-            write_text(out_dir / "solver.log", log_text)
+            exc.write_log(log_text)
         except Exception:  # pragma: no cover - disk full etc.
             pass
         status["runtime_s"] = time.monotonic() - t0
-        _write_json(out_dir / "status.json", status)
+        exc.write_status(status)
         if not keep_scratch:
             shutil.rmtree(work, ignore_errors=True)
     if status["status"] == "ok" and port == 1 and _wants_engine_sar(case_dir):
@@ -487,15 +438,13 @@ def solve_solver_sar(case_dir, threads: int | None = None, timeout_s: float | No
     ``{"status": "ok"|"partial"|"failed", "reason", "by_mass": {"<kg>": {"status", "reason",
     "dataset"}}, "runtime_s"}``. Returns that status.
     """
-    import h5py
-
     from bodysweep.workflow.atomic import write_text
 
     t0 = time.monotonic()
     case_dir = Path(case_dir).resolve()
-    out_dir = case_dir / "excite_1"
-    out_dir.mkdir(parents=True, exist_ok=True)
-    work = out_dir / ".engine_run_solver_sar"
+    exc = SolveFolder(case_dir).excitation(1)
+    exc.dir.mkdir(parents=True, exist_ok=True)
+    work = exc.dir / f"{exc.scratch.name}_solver_sar"
     shutil.rmtree(work, ignore_errors=True)
     work.mkdir(parents=True)
     if threads is None:
@@ -525,30 +474,23 @@ def solve_solver_sar(case_dir, threads: int | None = None, timeout_s: float | No
                 try:
                     got[name] = _read_solver_sar_dump(src, setup["lines_m"])
                     entry.update(status="ok", dataset=name)
-                except (OSError, KeyError, ValueError) as exc:
-                    entry["reason"] = _one_line(f"{crash + '; ' if crash else ''}{type(exc).__name__}: {exc}")
+                except (OSError, KeyError, ValueError) as err:
+                    entry["reason"] = _one_line(f"{crash + '; ' if crash else ''}{type(err).__name__}: {err}")
             status["by_mass"][repr(m)] = entry
         if got:
-            with _atomic(out_dir / "solver_sar.h5") as tmp:
-                with h5py.File(tmp, "w") as dst:
-                    first = next(iter(got.values()))
-                    for a in "xyz":
-                        dst.create_dataset(f"{a}_m", data=first[f"{a}_m"])
-                    for name, d in got.items():
-                        dst.create_dataset(name, data=d["sar"], compression="gzip")
-                    dst.attrs["SAR_Method"] = "IEEE_62704"
+            exc.write_engine_sar(got)
         n_ok = sum(e["status"] == "ok" for e in status["by_mass"].values())
         status["status"] = "ok" if n_ok == len(status["by_mass"]) else ("partial" if n_ok else "failed")
         status["reason"] = crash if crash else (None if n_ok == len(status["by_mass"]) else "see by_mass")
-    except Exception as exc:
+    except Exception as err:
         status["status"] = "failed"
-        status["reason"] = _one_line(f"{type(exc).__name__}: {exc}")
+        status["reason"] = _one_line(f"{type(err).__name__}: {err}")
     try:
-        write_text(out_dir / "solver_sar.log", log_text)
+        write_text(exc.engine_sar_log, log_text)
     except Exception:  # pragma: no cover - disk full etc.
         pass
     status["runtime_s"] = time.monotonic() - t0
-    _write_json(out_dir / "solver_sar_status.json", status)
+    exc.write_engine_sar_status(status)
     shutil.rmtree(work, ignore_errors=True)
     return status
 

@@ -122,10 +122,11 @@ def _merit(layout, case_ids: list[str], rank_by: str) -> dict[str, float]:
     """Figure of merit of each case that has a result (from the collector's summary of those cases)."""
     import pandas as pd
 
+    from bodysweep.workflow.casefolder import CaseFolder
     from bodysweep.workflow.collect import collect_frames
 
     entries = [{"case_id": c, "label": "", "parameters": {}} for c in case_ids
-               if (layout.case_dir(c) / "metrics.json").exists()]
+               if CaseFolder(layout.case_dir(c)).has_metrics()]
     if not entries:
         return {}
     s = collect_frames(layout, entries, band=False)["summary"]

@@ -1,7 +1,8 @@
-"""Finish a case: S-matrix, SAR, link budget and the case's output files.
+"""Finish a case: S-matrix, SAR, link budget and the case's output files (solver-neutral post-processing).
 
-:func:`finish_case` reads what the excitations left in ``excite_<p>/`` of the case's solve folder (see
-:mod:`.run` and :mod:`bodysweep.workflow.store`) and writes, in the case folder,
+:func:`finish_case` reads what the excitations left in ``excite_<p>/`` of the case's solve folder (through
+:mod:`bodysweep.workflow.casefolder`; any backend writes them as :mod:`bodysweep.workflow.solver.backend`
+says) and writes, in the case folder,
 
 ``sparams.s2p`` (``.s1p`` for a one-port scene or when only port 1 was excited)
     the S-matrix over the band, only the entries that were computed (Touchstone, through :func:`bodysweep.workflow.post.sparams.write_touchstone`);
@@ -28,13 +29,10 @@ from pathlib import Path
 
 import numpy as np
 
-from bodysweep.workflow.post import sparams
+from .casefolder import CaseFolder, Excitation, SolveFolder
+from .post import sparams
 
 __all__ = ["finish_case", "read_excitation", "smatrix_from_excitations", "sar_per_watt", "link_budget_rows"]
-
-
-def _read_json(path: Path) -> dict:
-    return json.loads(Path(path).read_text())
 
 
 def _c2pair(z) -> list | None:
@@ -49,8 +47,10 @@ def _finite_or_none(v) -> float | None:
     return v if math.isfinite(v) else None
 
 
-def read_excitation(exc_dir, f_band_Hz=None) -> dict:
-    """Port phasors of one excitation from its ``signals.h5``.
+def read_excitation(exc: Excitation | str | Path, f_band_Hz=None) -> dict:
+    """Port phasors of one excitation from its port signals (:meth:`.casefolder.Excitation.read_signals`).
+
+    ``exc``: the excitation folder (an :class:`~.casefolder.Excitation` or the path of ``excite_<p>/``).
 
     With ``f_band_Hz`` (nf,) the band phasors are transformed afresh from the stored port time signals
     at those frequencies (the finish step's own band points); otherwise the stored band is used.
@@ -62,28 +62,26 @@ def read_excitation(exc_dir, f_band_Hz=None) -> dict:
         with ports ordered by number, ``ports`` (n_ports,), ``z0_ohm`` (n_ports,), ``V_band``,
         ``I_band`` (n_ports, nf), ``V_f0``, ``I_f0`` (n_ports,).
     """
-    import h5py
+    if not isinstance(exc, Excitation):
+        d = Path(exc)
+        exc = Excitation(d, int(d.name.rpartition("_")[2]) if d.name.rpartition("_")[2].isdigit() else 0)
+    sig = exc.read_signals()
+    g = sig.pop("ports")
+    out = {**sig, "ports": np.array([x["number"] for x in g])}
+    out["z0_ohm"] = np.array([x["impedance_ohm"] for x in g])
+    if f_band_Hz is None:
+        out["V_band"] = np.array([x["V_band"] for x in g])
+        out["I_band"] = np.array([x["I_band"] for x in g])
+    else:
+        from .solver.ports import signals2phasors
 
-    with h5py.File(Path(exc_dir) / "signals.h5", "r") as h5:
-        numbers = sorted(int(k[4:]) for k in h5.keys() if k.startswith("port"))
-        out = {"f_band_Hz": h5["f_band_Hz"][()], "frequency_Hz": float(h5.attrs["frequency_Hz"]),
-               "excited_port": int(h5.attrs["excited_port"]), "timesteps": int(h5.attrs["timesteps"]),
-               "decay_reached": bool(h5.attrs["decay_reached"]), "ports": np.array(numbers)}
-        g = [h5[f"port{n}"] for n in numbers]
-        out["z0_ohm"] = np.array([float(x.attrs["impedance_ohm"]) for x in g])
-        if f_band_Hz is None:
-            out["V_band"] = np.array([x["V_band"][()] for x in g])
-            out["I_band"] = np.array([x["I_band"][()] for x in g])
-        else:
-            from .ports import signals2phasors
-
-            pairs = [signals2phasors(x["t_voltage_s"][()], x["voltage_V"][()], x["t_current_s"][()],
-                                     x["current_A"][()], f_band_Hz) for x in g]
-            out["f_band_Hz"] = np.asarray(f_band_Hz, float)
-            out["V_band"] = np.array([v for v, _ in pairs])
-            out["I_band"] = np.array([i for _, i in pairs])
-        out["V_f0"] = np.array([complex(x.attrs["V_f0"]) for x in g])
-        out["I_f0"] = np.array([complex(x.attrs["I_f0"]) for x in g])
+        pairs = [signals2phasors(x["t_voltage_s"], x["voltage_V"], x["t_current_s"], x["current_A"], f_band_Hz)
+                 for x in g]
+        out["f_band_Hz"] = np.asarray(f_band_Hz, float)
+        out["V_band"] = np.array([v for v, _ in pairs])
+        out["I_band"] = np.array([i for _, i in pairs])
+    out["V_f0"] = np.array([x["V_f0"] for x in g])
+    out["I_f0"] = np.array([x["I_f0"] for x in g])
     return out
 
 
@@ -118,12 +116,12 @@ def smatrix_from_excitations(excitations: list[dict], key: str = "band") -> np.n
     return sparams.smatrix_from_waves(a, b, exc_ports=[index[e["excited_port"]] for e in excitations])
 
 
-def read_raw_fields(path) -> dict:
-    """The arrays of a ``fields_raw.h5`` (see :mod:`.run`)."""
-    import h5py
-
-    with h5py.File(path, "r") as h5:
-        return {k: h5[k][()] for k in h5.keys()}
+def read_raw_fields(exc: Excitation | str | Path) -> dict:
+    """The raw SAR arrays of port 1's excitation (:meth:`.casefolder.Excitation.read_fields`); ``exc`` is
+    the excitation or the path of its field file."""
+    if not isinstance(exc, Excitation):
+        exc = Excitation(Path(exc).parent, 1)
+    return exc.read_fields()
 
 
 def sar_per_watt(raw: dict, p_accepted_W: float) -> dict:
@@ -207,38 +205,32 @@ def link_budget_rows(limits: list[dict], peaks: dict[float, float], S0: np.ndarr
 
 def _versions() -> dict:
     from bodysweep.geometry import BUILDER_VERSION
-    from bodysweep.workflow.post import POST_VERSION
 
-    from . import ADAPTER_VERSION
-    from .engine import engine_versions
+    from .post import POST_VERSION
+    from .solver import ADAPTER_VERSION
+    from .solver.engine import engine_versions
 
     return {"builder": BUILDER_VERSION, "adapter": ADAPTER_VERSION, "post": POST_VERSION, **engine_versions()}
 
 
-def _solver_sar_comparison(case_dir: Path, ours: dict, p_acc: float) -> dict:  # case_dir: the solve folder
+def _solver_sar_comparison(exc: Excitation, ours: dict, p_acc: float) -> dict:  # port 1's excitation
     """The engine's own averaged SAR peaks (if it was run) beside ours, per W accepted at port 1.
 
     ``ours`` maps mass (kg) to our peak of the same voxel-grid procedure (W/kg per W), not the flush-cube
     peak. Per mass: the engine's peak and its location, ours and the relative difference ``(engine - ours) / ours``, or the reason it is missing.
     """
-    st_path = case_dir / "excite_1" / "solver_sar_status.json"
-    if not st_path.exists():
+    st = exc.read_engine_sar_status()
+    if st is None:
         return {"status": "not run"}
-    st = _read_json(st_path)
     out = {"status": st.get("status"), "reason": st.get("reason"), "method": "openEMS IEEE_62704",
            "note": "the engine's own average, recorded beside ours as information, not used", "by_mass": []}
-    h5_path = case_dir / "excite_1" / "solver_sar.h5"
-    import h5py
-
     for m, our_peak in ours.items():
         entry = (st.get("by_mass") or {}).get(repr(float(m)), {"status": "failed", "reason": "not in the record"})
         row = {"mass_kg": float(m), "our_peak_W_per_kg_per_W": _finite_or_none(our_peak)}
-        if entry.get("status") != "ok" or not h5_path.exists():
-            row.update(status="failed", reason=entry.get("reason") or "solver_sar.h5 missing")
+        if entry.get("status") != "ok" or not exc.engine_sar_file.exists():
+            row.update(status="failed", reason=entry.get("reason") or f"{exc.engine_sar_file.name} missing")
         else:
-            with h5py.File(h5_path, "r") as h5:
-                data = h5[entry["dataset"]][()]
-                centres = [h5[f"{a}_m"][()] for a in "xyz"]
+            data, centres = exc.read_engine_sar(entry["dataset"])
             i = np.unravel_index(int(np.nanargmax(data)), data.shape)
             peak = float(data[i]) / p_acc
             rel = (peak - our_peak) / our_peak if our_peak and math.isfinite(our_peak) else None
@@ -267,17 +259,13 @@ def finish_case(case_dir, solve_dir=None) -> dict:
         What was written to ``metrics.json``. A failed or missing excitation gives
         ``{"status": "failed", "reason": ...}`` (also written).
     """
-    import h5py
+    from .post.sar_average import average_sar
+    from .post.sar_flush import flush_cube_peak, reported_peak
+    from .solver.settings import settings_from_dict
 
-    from bodysweep.workflow.atomic import atomic_path, write_json
-    from bodysweep.workflow.post.sar_average import average_sar
-    from bodysweep.workflow.post.sar_flush import flush_cube_peak, reported_peak
-
-    from .settings import settings_from_dict
-
-    case_dir = Path(case_dir)
-    solve_dir = Path(solve_dir) if solve_dir is not None else case_dir
-    case = _read_json(case_dir / "case.json")
+    folder = CaseFolder(case_dir)
+    solve = SolveFolder(solve_dir if solve_dir is not None else folder.dir)
+    case = folder.read_case_strict()
     f0 = float(case["frequency_Hz"])
     settings = settings_from_dict(case.get("solver") or {})
     sar_cfg = case.get("sar") or {}
@@ -286,20 +274,19 @@ def finish_case(case_dir, solve_dir=None) -> dict:
     exc_ports = list(settings.excite_ports)
     statuses = {}
     for p in exc_ports:
-        sp = solve_dir / f"excite_{p}" / "status.json"
-        if not sp.exists():  # removed a moment ago by another study's rerun of the solve job: the kept copy
-            sp = solve_dir / f"excite_{p}" / "outcome.json"
-        statuses[p] = _read_json(sp) if sp.exists() else {"status": "failed", "reason": f"excite_{p}/status.json missing"}
+        x = solve.excitation(p)
+        # removed a moment ago by another study's rerun of the solve job: the kept copy
+        statuses[p] = x.read_status() or x.read_outcome() or {"status": "failed", "reason": f"{x.label} missing"}
     runtime = sum(float(s.get("runtime_s") or 0.0) for s in statuses.values())
     bad = [p for p, s in statuses.items() if s.get("status") != "ok"]
     if bad:
         p = bad[0]
         out = {**base, "status": "failed", "reason": f"excitation of port {p}: {statuses[p].get('reason')}",
                "runtime_s": runtime}
-        write_json(case_dir / "metrics.json", out)
+        folder.write_metrics(out)
         return out
 
-    exc = [read_excitation(solve_dir / f"excite_{p}", settings.band_frequencies_Hz(f0)) for p in exc_ports]
+    exc = [read_excitation(solve.excitation(p), settings.band_frequencies_Hz(f0)) for p in exc_ports]
     f_band = exc[0]["f_band_Hz"]
     S_band = smatrix_from_excitations(exc, "band")
     S0 = smatrix_from_excitations(exc, "f0")[0]
@@ -314,7 +301,7 @@ def finish_case(case_dir, solve_dir=None) -> dict:
         ts_S = S_band
     else:  # only what was computed: the reflection at port 1 (S21 over the band stays in result.h5)
         ts_S = S_band[:, :1, :1]
-        comments.append("only port 1 was excited: one-port file of S11; S21 over the band is in result.h5 "
+        comments.append(f"only port 1 was excited: one-port file of S11; S21 over the band is in {folder.result_file.name} "
                         "(sparams/S), S12 and S22 were not computed")
     keep = np.all(np.isfinite(ts_S.reshape(len(f_band), -1)), axis=1)
     band_warnings = []
@@ -324,12 +311,10 @@ def finish_case(case_dir, solve_dir=None) -> dict:
         comments.append(band_warnings[-1])
     if not keep.any():
         out = {**base, "status": "failed", "reason": "no band point has a finite S-matrix", "runtime_s": runtime}
-        write_json(case_dir / "metrics.json", out)
+        folder.write_metrics(out)
         return out
-    written = sparams.write_touchstone(case_dir / "sparams.s2p", f_band[keep], ts_S[keep], z0, comments=comments)
-    for stale in case_dir.glob("sparams.s*p"):  # a file of another port count from an earlier run
-        if stale != written:
-            stale.unlink(missing_ok=True)
+    written = sparams.write_touchstone(folder.touchstone_target(), f_band[keep], ts_S[keep], z0, comments=comments)
+    folder.remove_other_touchstones(written)  # a file of another port count from an earlier run
 
     def s(i, j):
         return _c2pair(S0[i, j]) if i < n_ports and j < n_ports else None
@@ -344,7 +329,7 @@ def finish_case(case_dir, solve_dir=None) -> dict:
     if e1 is not None:
         i1 = int(np.nonzero(e1["ports"] == 1)[0][0])
         p_acc = float(sparams.accepted_power(e1["V_f0"][i1], e1["I_f0"][i1]))
-        raw = read_raw_fields(solve_dir / "excite_1" / "fields_raw.h5")
+        raw = solve.excitation(1).read_fields()
         sp = sar_per_watt(raw, p_acc)
         edges = (raw["x_edges_m"], raw["y_edges_m"], raw["z_edges_m"])
         volumes["local"] = sp["local"]
@@ -362,15 +347,15 @@ def finish_case(case_dir, solve_dir=None) -> dict:
         metrics["accepted_power_port1_W"] = p_acc
         metrics["absorbed_fraction_tissue"] = sp["absorbed_tissue_W_per_W"]
         metrics["absorbed_fraction_all"] = sp["absorbed_all_W_per_W"]
-        metrics["solver_sar"] = _solver_sar_comparison(solve_dir, grid_peaks, p_acc)
+        metrics["solver_sar"] = _solver_sar_comparison(solve.excitation(1), grid_peaks, p_acc)
     metrics["sar"] = sar_rows
     metrics["limits"] = link_budget_rows(sar_cfg.get("limits", []), peaks, S0)
-    from bodysweep.workflow.post.portfigures import STRONG_COUPLING, port_figures
+    from .post.portfigures import STRONG_COUPLING, port_figures
 
     metrics["ports"] = port_figures(S0, z0, exc_ports)
     mag = None
     if n_ports >= 2 and np.all(np.isfinite(S0[:2, :2])):
-        from bodysweep.workflow.post.twoport import max_available_gain
+        from .post.twoport import max_available_gain
 
         g, is_mag = max_available_gain(S0[None, :2, :2], return_flag=True)
         mag = _finite_or_none(g[0]) if bool(is_mag[0]) else None
@@ -385,7 +370,7 @@ def finish_case(case_dir, solve_dir=None) -> dict:
     metrics["cells"] = statuses[exc_ports[0]].get("cells")
     metrics["timesteps"] = int(sum(int(s.get("timesteps") or 0) for s in statuses.values()))
     metrics["decay_reached"] = all(bool(s.get("decay_reached")) for s in statuses.values())
-    from bodysweep.workflow.post import flags
+    from .post import flags
 
     metrics["energy_balance"] = flags.energy_balance(metrics.get("absorbed_fraction_all"), S0[0, 0],
                                                      S0[1, 0] if n_ports >= 2 else None)
@@ -396,25 +381,12 @@ def finish_case(case_dir, solve_dir=None) -> dict:
         metrics["status"] = "warning"
 
     versions = _versions()
-    scene_file = solve_dir / "scene.json"
-    with atomic_path(case_dir / "result.h5") as tmp:
-        with h5py.File(tmp, "w") as h5:
-            h5.attrs["case_id"] = str(case.get("case_id"))
-            h5.attrs["solve_id"] = str(case.get("solve_id"))
-            h5.attrs["scene"] = scene_file.read_text() if scene_file.exists() else json.dumps(case.get("scene"))
-            h5.attrs["settings"] = json.dumps(settings.to_dict())
-            h5.attrs["versions"] = json.dumps(versions)
-            h5.attrs["frequency_Hz"] = f0
-            h5.create_dataset("sparams/f_Hz", data=f_band)
-            h5.create_dataset("sparams/S", data=S_band)
-            if volumes:
-                g = h5.create_group("sar")
-                g.attrs["unit"] = "W/kg per W accepted at port 1"
-                for a, e in zip("xyz", edges):
-                    g.create_dataset(f"{a}_edges_m", data=e)
-                g.create_dataset("density_kg_m3", data=raw["density_kg_m3"], compression="gzip")
-                for k, v in volumes.items():
-                    g.create_dataset(k, data=v.astype(np.float32), compression="gzip", compression_opts=4)
+    scene_file = solve.scene_file
+    attrs = {"case_id": str(case.get("case_id")), "solve_id": str(case.get("solve_id")),
+             "scene": scene_file.read_text() if scene_file.exists() else json.dumps(case.get("scene")),
+             "settings": json.dumps(settings.to_dict()), "versions": json.dumps(versions), "frequency_Hz": f0}
+    sar = {"edges": edges, "density_kg_m3": raw["density_kg_m3"], "volumes": volumes} if volumes else None
+    folder.write_result(attrs, f_band, S_band, sar)
     metrics["versions"] = versions
-    write_json(case_dir / "metrics.json", metrics)
+    folder.write_metrics(metrics)
     return metrics
