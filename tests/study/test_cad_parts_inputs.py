@@ -84,3 +84,20 @@ def test_file_content_in_the_identity(tmp_path, part):
     write_stl(tmp_path / "b" / "part.stl", box_triangles(lo - 0.5, hi + 0.5))  # the user edits the part
     edited = [c.case_id for c in expand(load_study(tmp_path / "b" / "s.yaml"))]
     assert set(edited).isdisjoint(ids[0])
+
+
+def test_solve_record_keeps_the_files_the_scene_step_reads(tmp_path):
+    """solve.json carries the parts' file paths (the scene step builds from it) while its hash, checked by
+    verify, leaves them out: the folder name stays the solve id."""
+    from bodysweep.geometry.scene import Scene
+    from bodysweep.workflow.store import solve_record, verify_solve, write_solve_record
+
+    write_stl(tmp_path / "part.stl", box_triangles(*GOOD["capsule"]))
+    (tmp_path / "s.yaml").write_text(yaml.safe_dump(_study("rec", "capsule", "part.stl")))
+    case = expand(load_study(tmp_path / "s.yaml"))[0].to_dict()
+    rec = solve_record(case)
+    assert rec["scene"]["implant"]["capsule"]["file"] == str(tmp_path / "part.stl")
+    Scene.from_dict(rec["scene"])  # what the scene step does with it
+    write_solve_record(tmp_path / "store", case)
+    problems = verify_solve(tmp_path / "store", case["solve_id"], [1])
+    assert problems and not any("hashes to" in p for p in problems), problems  # only the missing run files
