@@ -80,28 +80,39 @@ def surface_points(vertices, faces, step: float) -> np.ndarray:
     return np.concatenate(out)
 
 
+def face_planes(vertices, faces) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Per axis, the planes of the faces perpendicular to it: sorted levels (m) and their face area (m^2).
+
+    Levels closer than 1e-6 of the part's size are one plane.
+    """
+    v = np.asarray(vertices, dtype=float)
+    tri = v[np.asarray(faces)]
+    area = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1)
+    tol = 1e-9 * max(float(np.ptp(v, axis=0).max()), 1e-12)
+    out = []
+    for i in range(3):
+        c = tri[:, :, i]
+        flat = np.ptp(c, axis=1) <= tol
+        level = c[flat].mean(axis=1)
+        key = np.round(level / (1e3 * tol)).astype(np.int64)
+        uniq, inv = np.unique(key, return_inverse=True)
+        out.append((np.array([level[inv == k].mean() for k in range(len(uniq))]),
+                    np.bincount(inv, weights=area[flat], minlength=len(uniq))))
+    return out
+
+
 def inner_plane_hints(vertices, faces, name: str, what: str) -> list[MeshHint]:
     """Fixed lines on the planes of faces perpendicular to an axis that lie strictly inside the bounding box.
 
     Per axis at most :data:`MAX_PLANE_HINTS` planes, those with the largest face area first.
     """
     v = np.asarray(vertices, dtype=float)
-    tri = v[np.asarray(faces)]
-    area = 0.5 * np.linalg.norm(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]), axis=1)
     lo, hi = v.min(0), v.max(0)
-    tol = 1e-9 * max(float(np.ptp(v, axis=0).max()), 1e-12)
+    tol = 1e-6 * max(float(np.ptp(v, axis=0).max()), 1e-12)
     hints = []
-    for i, a in enumerate(AXES):
-        c = tri[:, :, i]
-        flat = np.ptp(c, axis=1) <= tol
-        level = c[flat].mean(axis=1)
-        inner = (level > lo[i] + 1e3 * tol) & (level < hi[i] - 1e3 * tol)
-        if not inner.any():
-            continue
-        key = np.round(level[inner] / (1e3 * tol)).astype(np.int64)
-        uniq, inv = np.unique(key, return_inverse=True)
-        weight = np.bincount(inv, weights=area[flat][inner])
-        levels = np.array([level[inner][inv == k].mean() for k in range(len(uniq))])
+    for i, (a, (levels, weight)) in enumerate(zip(AXES, face_planes(v, faces))):
+        inner = (levels > lo[i] + tol) & (levels < hi[i] - tol)
+        levels, weight = levels[inner], weight[inner]
         for x in sorted(levels[np.argsort(-weight)[:MAX_PLANE_HINTS]]):
             hints.append(MeshHint(a, float(x), float(x), 0.0, f"{name} {what} inner face plane"))
     return hints
@@ -220,5 +231,5 @@ def outline_points(prims) -> np.ndarray:
     return np.concatenate(pts)
 
 
-__all__ = ["shells", "surface_points", "inner_plane_hints", "encloses", "mesh_distance", "mesh_box_clearance",
+__all__ = ["shells", "surface_points", "face_planes", "inner_plane_hints", "encloses", "mesh_distance", "mesh_box_clearance",
            "line_points", "primitive_points", "outline_points", "CHECK_STEP_M", "MAX_PLANE_HINTS"]
