@@ -50,7 +50,7 @@ def _db(z) -> float:
 
 
 def _run(case_dir: Path, model, plan) -> dict:
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     write_case(case_dir, model, plan, F0, {**SOLVER, "excite_ports": [1, 2]}, SAR)
