@@ -263,7 +263,7 @@ class Loop:
                 "bridge_height_m": self.bridge_height_m, "conductor": self.conductor}
 
 
-from .cad import CadPart  # noqa: E402
+from .cad import CadPart, CadShell  # noqa: E402
 from .planar import PLANAR_TYPES, InvertedF, MeanderLine, Spiral  # noqa: E402
 
 Element = Dipole | Loop | InvertedF | MeanderLine | Spiral | CadPart
@@ -330,6 +330,16 @@ CASING_MATERIAL = "external_casing"
 CAPSULE_MATERIAL = "implant_capsule"
 
 
+def _refuse_cutting_shell(shell: CadShell, eb: ElementBuild, part: str, what: str) -> None:
+    """A cad capsule or casing must enclose the element's conductors and feed (see CadShell.outside_points)."""
+    out = shell.outside_points(eb)
+    if len(out):
+        q = out[0] * 1e3
+        raise ValueError(f"{part}: the cad {what} {shell.file} cuts the antenna: {len(out)} checked point(s) of "
+                         f"its conductors or feed lie outside it, e.g. ({q[0]:.4g}, {q[1]:.4g}, {q[2]:.4g}) mm from "
+                         f"the antenna's origin; check offset_mm, rotation_deg and unit of the {what}")
+
+
 @dataclass(frozen=True)
 class ExternalAntenna:
     """An element above the body.
@@ -347,6 +357,9 @@ class ExternalAntenna:
     casing : Dielectric or None
         Casing material (named ``external_casing``), required when the thickness is > 0.
     impedance_ohm : float
+    casing_part : CadShell or None
+        A casing read from an STL file instead of the box (``casing_thickness_m`` then 0); it must
+        enclose the conductors and the feed. The standoff is measured to its lowest point.
     """
 
     element: Element
@@ -355,6 +368,7 @@ class ExternalAntenna:
     casing_thickness_m: float = 0.0
     casing: Dielectric | None = None
     impedance_ohm: float = 50.0
+    casing_part: CadShell | None = None
 
     def __post_init__(self):
         part = f"external {self.element.type}"
@@ -367,14 +381,24 @@ class ExternalAntenna:
         object.__setattr__(self, "impedance_ohm", positive(part, "impedance_ohm", self.impedance_ohm))
         if self.casing_thickness_m > 0 and self.casing is None:
             raise ValueError(f"{part}: a casing of thickness {self.casing_thickness_m} m needs eps_r")
+        if self.casing_part is not None:
+            if self.casing_thickness_m > 0:
+                raise ValueError(f"{part}: a cad casing takes no thickness_m (its file gives the walls)")
+            _refuse_cutting_shell(self.casing_part, self.element.build("external"), part, "casing")
 
     def build(self) -> PlacedAntenna:
         eb = self.element.build("external")
         lo, _ = _bounds_of(eb.primitives)
         t = self.casing_thickness_m
+        if self.casing_part is not None:
+            lo[2] = min(lo[2], float(self.casing_part.mesh()[0][:, 2].min()))
         offset = np.array([self.position_m[0], self.position_m[1], self.standoff_m + t - lo[2]])
         prims, port, hints = _place(eb, offset, "external", 1, self.impedance_ohm)
         mats: tuple = eb.materials
+        if self.casing_part is not None:
+            prims = prims + tuple(self.casing_part.primitives(offset))
+            hints = hints + tuple(self.casing_part.hints(offset))
+            mats = mats + self.casing_part.materials()
         if t > 0:
             lo, hi = _bounds_of(prims)
             prims = prims + (Box("external_casing", CASING_MATERIAL, tuple((lo - t).tolist()),
@@ -387,6 +411,8 @@ class ExternalAntenna:
         d.update(position_m=list(self.position_m), standoff_m=self.standoff_m, impedance_ohm=self.impedance_ohm)
         if self.casing_thickness_m > 0:
             d["casing"] = {"thickness_m": self.casing_thickness_m, **self.casing.to_inline_dict()}
+        if self.casing_part is not None:
+            d["casing"] = self.casing_part.to_dict()
         return d
 
     @classmethod
@@ -394,8 +420,11 @@ class ExternalAntenna:
         d = dict(d)
         place = {k: d.pop(k) for k in ("position_m", "standoff_m", "impedance_ohm") if k in d}
         casing = d.pop("casing", None)
-        if casing is not None:
+        if casing is not None and dict(casing).get("shape") == "cad":
+            place["casing_part"] = CadShell.from_dict(casing, CASING_MATERIAL, "external antenna casing")
+        elif casing is not None:
             casing = dict(casing)
+            casing.pop("shape", None) if casing.get("shape") == "box" else None
             if "thickness_m" not in casing:
                 raise ValueError(f"external antenna casing: needs thickness_m, got {casing!r}")
             place["casing_thickness_m"] = casing.pop("thickness_m")
@@ -461,9 +490,11 @@ class Capsule:
     @classmethod
     def from_dict(cls, d: Mapping) -> "Capsule":
         d = dict(d)
+        if d.get("shape") == "cad":
+            return CadShell.from_dict(d, CAPSULE_MATERIAL, "implant capsule")
         geo = {k: d.pop(k) for k in ("shape", "size_m", "radius_m", "length_m", "axis") if k in d}
         if "shape" not in geo:
-            raise ValueError(f"implant capsule: needs shape 'box' or 'cylinder', got {dict(d, **geo)!r}")
+            raise ValueError(f"implant capsule: needs shape 'box', 'cylinder' or 'cad', got {dict(d, **geo)!r}")
         return cls(material=_dielectric_from(d, CAPSULE_MATERIAL, "implant capsule"), **geo)
 
 
@@ -484,7 +515,7 @@ class ImplantAntenna:
     element: Element
     depth_m: float
     position_m: tuple[float, float] = (0.0, 0.0)
-    capsule: Capsule | None = None
+    capsule: Capsule | CadShell | None = None
     impedance_ohm: float = 50.0
 
     def __post_init__(self):
@@ -492,7 +523,9 @@ class ImplantAntenna:
         object.__setattr__(self, "depth_m", positive(part, "depth_m", self.depth_m))
         object.__setattr__(self, "position_m", vector(part, "position_m", self.position_m, 2))
         object.__setattr__(self, "impedance_ohm", positive(part, "impedance_ohm", self.impedance_ohm))
-        if self.capsule is not None:
+        if isinstance(self.capsule, CadShell):
+            _refuse_cutting_shell(self.capsule, self.element.build("implant"), part, "capsule")
+        elif self.capsule is not None:
             from .shapes import sample_points
             eb = self.element.build("implant")
             pts = np.concatenate([sample_points(p, 1e9)[0] for p in eb.primitives]
@@ -511,7 +544,11 @@ class ImplantAntenna:
         eb = self.element.build("implant")
         prims, port, hints = _place(eb, self.centre, "implant", 2, self.impedance_ohm)
         mats: tuple = eb.materials
-        if self.capsule is not None:
+        if isinstance(self.capsule, CadShell):
+            prims = prims + tuple(self.capsule.primitives(self.centre))
+            mats = mats + self.capsule.materials()
+            hints = hints + tuple(self.capsule.hints(self.centre))
+        elif self.capsule is not None:
             prims = prims + (self.capsule.primitive(self.centre),)
             mats = mats + (self.capsule.material,)
         return PlacedAntenna(prims, port, self.centre, hints, mats)

@@ -3,7 +3,8 @@
 Errors (the arrangement cannot be what the user meant; :meth:`Scene.check` raises them):
 
 - a concentrator that touches or crosses a conductor of the external or the implant antenna (it would
-  short the antenna's feed or become part of the antenna);
+  short the antenna's feed or become part of the antenna); a cad concentrator (metal or dielectric) by
+  points every 0.05 mm on its faces and by the conductor's outline points lying inside it;
 - an implant whose capsule (or antenna, without capsule) reaches into the core of a limb (bone).
 
 Warnings (the arrangement may be deliberate; ``bodysweep check`` prints them):
@@ -19,7 +20,8 @@ from __future__ import annotations
 import numpy as np
 
 from .phantoms import LayeredCylinder, LayeredSlab, LiquidBox
-from .primitives import Box, Cylinder, Polygon, Wire, axis_index
+from .meshgeom import encloses, mesh_distance, outline_points, surface_points
+from .primitives import Box, Cylinder, Polygon, Polyhedron, Wire, axis_index
 from .shapes import distance_to_box, sample_points
 
 #: closer than this (m), a concentrator counts as touching an antenna conductor (sampling step 0.1 mm / 2)
@@ -67,6 +69,9 @@ def distance_to_primitive(points, prim) -> np.ndarray:
         pts = np.asarray(prim.points, dtype=float)
         d = np.min([_segment_distance(p, a, b) for a, b in zip(pts[:-1], pts[1:])], axis=0)
         return np.maximum(d - prim.radius, 0.0)
+    if isinstance(prim, Polyhedron):  # a cad conductor: distance to its faces, 0 inside
+        v, f = np.asarray(prim.vertices, dtype=float), np.asarray(prim.faces)
+        return np.where(encloses(v, f, p), 0.0, mesh_distance(p, v, f))
     if isinstance(prim, Polygon):
         n = axis_index(prim.normal)
         a, b = prim.plane_axes()
@@ -84,7 +89,22 @@ def distance_to_primitive(points, prim) -> np.ndarray:
 
 
 def _conductors(placed, skip: tuple[str, ...]) -> list:
-    return [p for p in placed.primitives if p.material not in skip]
+    return [p for p in placed.primitives if not p.material.startswith(skip)]  # a cad shell's cavity air too
+
+
+def _gap(pts: np.ndarray, cond, prim) -> float:
+    """Smallest distance from a concentrator's sample points to an antenna conductor (points near it only);
+    0 when a point of the conductor lies inside a cad concentrator."""
+    if not isinstance(prim, Polyhedron):
+        return float(np.min(distance_to_primitive(pts, cond)))
+    v, f = np.asarray(prim.vertices, dtype=float), np.asarray(prim.faces)
+    if encloses(v, f, outline_points([cond])).any():
+        return 0.0
+    lo, hi = (np.asarray(b, dtype=float) for b in cond.bounds())
+    near = pts[np.all((pts >= lo - 2 * TOUCH_M) & (pts <= hi + 2 * TOUCH_M), axis=1)]
+    if not len(near):  # every face point is farther than 2 TOUCH_M from the conductor's bounding box
+        return float(distance_to_box(pts, lo, hi).min())
+    return float(np.min(distance_to_primitive(near, cond)))
 
 
 def concentrator_contact_errors(scene, anchors) -> list[str]:
@@ -99,8 +119,10 @@ def concentrator_contact_errors(scene, anchors) -> list[str]:
         name = f"concentrator {i} ({c.type})"
         for prim in c.build(anchors, name):
             pts, r = sample_points(prim, _STEP)
+            if isinstance(prim, Polyhedron):  # a cad part: points on its faces; conductor points inside it
+                pts, r = surface_points(prim.vertices, prim.faces, TOUCH_M), 0.0
             for who, conds in antennas:
-                d = min(float(np.min(distance_to_primitive(pts, q))) for q in conds) - r
+                d = min(_gap(pts, q, prim) for q in conds) - r
                 if d < TOUCH_M:
                     how = "crosses" if d <= 0 else f"touches ({d * 1e3:.2g} mm from)"
                     out.append(f"{name} {how} the {who}'s conductor: it would short or extend the antenna; move "

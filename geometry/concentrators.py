@@ -17,6 +17,7 @@ from typing import Mapping
 
 import numpy as np
 
+from .cad import CadConcentrator
 from .primitives import AXES, PRIORITY_CONDUCTOR, Box, Cylinder, Polygon, Primitive, Vec3, Wire
 from .shapes import plane2xyz, xyz2polygon_points
 from .specs import choice, construct, number, positive, vector
@@ -316,8 +317,8 @@ class Ring:
                 "segments": self.segments, "conductor": self.conductor}
 
 
-Concentrator = Rod | RodPair | CrossedPairs | RodArray | Ring
-CONCENTRATOR_TYPES: dict[str, type] = {c.type: c for c in (Rod, RodPair, CrossedPairs, RodArray, Ring)}
+Concentrator = Rod | RodPair | CrossedPairs | RodArray | Ring | CadConcentrator
+CONCENTRATOR_TYPES: dict[str, type] = {c.type: c for c in (Rod, RodPair, CrossedPairs, RodArray, Ring, CadConcentrator)}
 
 
 def concentrator_from_dict(d: Mapping) -> Concentrator:

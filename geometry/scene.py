@@ -17,6 +17,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from .antennas import CAPSULE_MATERIAL, CASING_MATERIAL, ExternalAntenna, ImplantAntenna
+from .cad import CadConcentrator
 from .concentrators import CONCENTRATOR_TYPES, Concentrator, concentrator_from_dict
 from .model import SceneModel
 from .phantoms import SHELL_MATERIAL, LayeredCylinder, LiquidBox, NoPhantom, Phantom, phantom_from_dict
@@ -104,7 +105,8 @@ class Scene:
         refs.append(("external antenna conductor", self.external.element.conductor))
         if self.implant is not None:
             refs.append(("implant antenna conductor", self.implant.element.conductor))
-        refs += [(f"concentrator {i} ({c.type})", c.conductor) for i, c in enumerate(self.concentrators)]
+        refs += [(f"concentrator {i} ({c.type})", c.conductor) for i, c in enumerate(self.concentrators)
+                 if c.conductor]  # a dielectric cad concentrator carries its material inline
         return refs
 
     def anchors(self) -> dict[str, Vec3]:
@@ -177,11 +179,14 @@ class Scene:
         ext = self.external.build()
         anchors = self.anchors()
         prims: list[Primitive] = list(ph.primitives)
-        for i, c in enumerate(self.concentrators):
-            prims += c.build(anchors, f"conc{i}_{c.type}")
-        ports = [ext.port]
         hints = list(ph.hints) + list(ext.hints)
         inline = {m.name: m for m in ph.materials + ext.materials}
+        for i, c in enumerate(self.concentrators):
+            prims += c.build(anchors, f"conc{i}_{c.type}")
+            if isinstance(c, CadConcentrator):  # a cad part brings its mesh lines and its inline dielectric
+                hints += c.hints(anchors, f"conc{i}_{c.type}")
+                inline.update({m.name: m for m in c.materials(f"conc{i}_{c.type}")})
+        ports = [ext.port]
         if self.implant is not None:
             imp = self.implant.build()
             prims += imp.primitives

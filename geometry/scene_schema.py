@@ -179,18 +179,48 @@ SPIRAL_PROPS = {
     "segments_per_turn": _num("Polyline segments per turn of a circular spiral.", 48, minimum=8, integer=True),
 }
 
+
+def _shell_file_props(what: str, origin: str) -> dict:
+    """Keys of a capsule or casing read from an STL file (``shape: cad``)."""
+    return {
+        "file": _str(f"Cad {what}s: path of the STL file (a closed solid that encloses the antenna's conductors and "
+                     "feed), relative to the study file's folder (or absolute)."),
+        "unit": _str(f"Cad {what}s: length of one unit in the file.", "mm", ["m", "mm", "um"]),
+        "offset_mm": _vec(f"Cad {what}s: shift (x, y, z) of the part after rotation, from {origin} (mm).", 3,
+                          [0.0, 0.0, 0.0]),
+        "rotation_deg": _vec(f"Cad {what}s: rotation about x, then y, then z (degrees, about the file's origin).",
+                             3, [0.0, 0.0, 0.0]),
+        "sha256": _str(f"Cad {what}s: content hash of the file; filled in when the study is expanded."),
+    }
+
+
 CASING = _obj("Dielectric casing around the external antenna: a box this much larger than the conductors on "
-              "every side.", {"thickness_mm": _len("Casing wall thickness"), **DIELECTRIC_PROPS},
-              ["thickness_mm", "eps_r"], **NOT_BOTH_LOSSES)
+              "every side, or (shape cad) a solid read from an STL file.", {
+                  "shape": _str("Casing shape: leave out (or box) for the box of thickness_mm, cad for an STL file.",
+                                None, ["box", "cad"]),
+                  "thickness_mm": _len("Box casings: wall thickness"),
+                  **_shell_file_props("casing", "the antenna element's own origin"), **DIELECTRIC_PROPS},
+              ["eps_r"], allOf=[NOT_BOTH_LOSSES,
+                                {"if": {"properties": {"shape": {"const": "cad"}}, "required": ["shape"]},
+                                 "then": {"required": ["file"], "not": {"required": ["thickness_mm"]}},
+                                 "else": {"required": ["thickness_mm"],
+                                          "not": {"anyOf": [{"required": [k]} for k in
+                                                            ("file", "unit", "offset_mm", "rotation_deg",
+                                                             "sha256")]}}}])
 
 CAPSULE = _obj("Dielectric capsule around the implant antenna, centred on it.", {
-    "shape": _str("Capsule shape.", "cylinder", ["box", "cylinder"]),
+    "shape": _str("Capsule shape (cad: a solid read from an STL file).", "cylinder", ["box", "cylinder", "cad"]),
     "size_mm": _vec("Box capsules: size along x, y, z (mm).", 3),
     "radius_mm": _len("Cylinder capsules: radius", zero_ok=True),
     "length_mm": _len("Cylinder capsules: length", zero_ok=True),
     "axis": _str("Cylinder capsules: axis direction.", "x", AXIS3),
+    **_shell_file_props("capsule", "the implant's centre"),
     **DIELECTRIC_PROPS,
-}, ["shape", "eps_r"], **NOT_BOTH_LOSSES)
+}, ["shape", "eps_r"], allOf=[NOT_BOTH_LOSSES,
+                              {"if": {"properties": {"shape": {"const": "cad"}}, "required": ["shape"]},
+                               "then": {"required": ["file"]},
+                               "else": {"not": {"anyOf": [{"required": [k]} for k in
+                                                          ("file", "unit", "offset_mm", "rotation_deg", "sha256")]}}}])
 
 EXTERNAL_PLACE = {
     "position_mm": _vec("Lateral position (x, y) of the antenna centre (mm).", 2, [0.0, 0.0]),
@@ -249,6 +279,21 @@ CONCENTRATORS = {
         "segments": _num("Polygon segments around the ring.", 48, minimum=8, integer=True),
         "conductor": CONDUCTOR,
     }, ["type", "radius_mm", "trace_width_mm"]),
+    "cad": _obj("A passive part read from an STL file (closed solid), metal or dielectric, placed by anchor + "
+                "offset + rotation.", {
+        "type": _typed("cad", "Part read from an STL file."), "anchor": ANCHOR,
+        "file": _str("Path of the STL file, relative to the study file's folder (or absolute)."),
+        "unit": _str("Length of one unit in the file.", "mm", ["m", "mm", "um"]),
+        "offset_mm": _vec("Shift (x, y, z) of the part after rotation, from the anchor (mm).", 3, [0.0, 0.0, 0.0]),
+        "rotation_deg": _vec("Rotation about x, then y, then z (degrees, about the file's origin).", 3,
+                             [0.0, 0.0, 0.0]),
+        "conductor": _str("Metal: 'pec' or a conductor declared under materials; default pec unless eps_r is "
+                          "given."),
+        "eps_r": _num("A dielectric part: relative permittivity (excludes conductor).", minimum=1),
+        "loss_tangent": _num("A dielectric part: loss tangent tan(delta). Give this or sigma_S_per_m.", minimum=0),
+        "sigma_S_per_m": _num("A dielectric part: conductivity in S/m. Give this or loss_tangent.", minimum=0),
+        "sha256": _str("Content hash of the file; filled in when the study is expanded (give it to pin a version)."),
+    }, ["type", "file"], allOf=[NOT_BOTH_LOSSES, {"not": {"required": ["conductor", "eps_r"]}}]),
 }
 
 MATERIALS = {
@@ -353,7 +398,8 @@ def scene_schema() -> dict:
                                  {"dipole": "implant_dipole", "loop": "implant_loop",
                                   "inverted_f": "implant_inverted_f", "meander": "implant_meander",
                                   "spiral": "implant_spiral", "cad": "implant_cad"}),
-            "concentrators": {"description": "Passive metal parts in tissue, placed relative to an anchor.",
+            "concentrators": {"description": "Passive metal (or, cad parts, dielectric) parts in tissue, placed "
+                                             "relative to an anchor.",
                               "type": "array", "default": [],
                               "items": _dispatch("One concentrator.",
                                                  {k: f"concentrator_{k}" for k in CONCENTRATORS})},

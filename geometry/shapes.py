@@ -8,6 +8,7 @@ import dataclasses
 
 import numpy as np
 
+from .meshgeom import mesh_box_clearance
 from .primitives import AXES, Box, Cylinder, Polygon, Polyhedron, Port, Primitive, Wire, axis_index
 
 #: for a planar element with normal n: (u axis, v axis). The feed gap sits at the v-minimum side
@@ -152,7 +153,8 @@ def clearance_to_box(p: Primitive, lo, hi, step: float) -> float:
     times a disc across it, the box an interval times a rectangle, so the distance splits into the
     interval gap along the axis and the disc-to-rectangle gap across it (analytic). Other primitives
     use points every ``step`` along their centre line minus their half-thickness (an oblique
-    cylinder's flat ends then count as round: an underestimate of at most its radius).
+    cylinder's flat ends then count as round: an underestimate of at most its radius); a polyhedron
+    points every ``step`` on its faces, 0 when it holds the box (:func:`.meshgeom.mesh_box_clearance`).
     """
     lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
     if isinstance(p, Box):
@@ -169,6 +171,8 @@ def clearance_to_box(p: Primitive, lo, hi, step: float) -> float:
         if along == 0.0 and d_across <= 0.0:
             return d_across  # the two overlap
         return float(np.hypot(along, max(d_across, 0.0)))
+    if isinstance(p, Polyhedron):  # a cad part: points on its faces, and a box inside it counts as contact
+        return mesh_box_clearance(p, lo, hi, step)
     pts, r = sample_points(p, step)
     return float(distance_to_box(pts, lo, hi).min()) - r
 

@@ -53,12 +53,16 @@ def store_root(results_dir: str | os.PathLike = "results", given: str | os.PathL
 
 
 def solve_record(case: dict) -> dict:
-    """The ``solve.json`` content of a case (``case.json`` content with its ``solve_id``)."""
+    """The ``solve.json`` content of a case (``case.json`` content with its ``solve_id``).
+
+    The scene keeps the ``file`` of its CAD parts, which the solve id leaves out (it holds their content
+    hash): the scene step reads the files from there.
+    """
     from .study.cases import solve_content
 
     content = solve_content(case["scene"], case["frequency_Hz"], case["solver"], case["sar"],
                             case.get("excite_ports", [1]), case["versions"])
-    return {**content, "solve_id": case["solve_id"]}
+    return {**content, "scene": case["scene"], "solve_id": case["solve_id"]}
 
 
 def write_solve_record(root: Path, case: dict) -> bool:
@@ -181,6 +185,7 @@ def reset_failed_solve(solve_dir: Path, ports: Iterable[int]) -> bool:
 
 def verify_solve(root: Path, solve_id: str, ports: Iterable[int]) -> list[str]:
     """Problems of one stored solve: ``solve.json`` hashing to its folder name, scene, excitation files."""
+    from .study.cases import scene_identity
     from .study.identity import content2case_id
 
     folder = SolveFolder(Path(root) / solve_id)
@@ -192,6 +197,8 @@ def verify_solve(root: Path, solve_id: str, ports: Iterable[int]) -> list[str]:
         return [f"{where}: {SOLVE_FILE} missing or unreadable"]
     out = []
     content = {k: v for k, v in rec.items() if k != "solve_id"}
+    if isinstance(content.get("scene"), dict):
+        content["scene"] = scene_identity(content["scene"])  # CAD parts by their hash, not their file
     if content2case_id(content) != solve_id or rec.get("solve_id") != solve_id:
         out.append(f"{where}: {SOLVE_FILE} hashes to {content2case_id(content)}, not to its folder name")
     for f in folder.built_files():

@@ -33,6 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from bodysweep.geometry.model import SceneModel
+from bodysweep.geometry.meshgeom import face_planes
 from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Polyhedron, Wire
 
 from .mesh_fill import (_GRADING_SLOPE_FRACTION, _GapEnvelope, _axis_lines, _graded_split,  # noqa: F401
@@ -450,12 +451,15 @@ def check_solids_resolved(plan: MeshPlan, model: SceneModel, settings: SolverSet
     """Refuse a mesh on which a polyhedron (a CAD part) is thinner than one cell along some axis.
 
     Such a part would fall between the mesh lines and vanish or be filled by chance. The part must span
-    at least one cell: two mesh lines within its extent along every axis.
+    at least one cell: two mesh lines within its extent along every axis; and so must every slice between
+    two neighbouring planes of its faces perpendicular to that axis (a wall, a step, a gap, a cavity).
     """
     for p in model.primitives:
         if not isinstance(p, Polyhedron):
             continue
         lo, hi = p.bounds()
+        planes = face_planes(p.vertices, p.faces)
+        now = "derived" if settings.min_cell_m is None else f"{settings.min_cell_m*1e3:g} mm"
         for i, a in enumerate(AXES):
             ln = plan.lines(i)
             tol = 1e-9 * max(1.0, abs(hi[i]) + abs(lo[i]))
@@ -463,10 +467,18 @@ def check_solids_resolved(plan: MeshPlan, model: SceneModel, settings: SolverSet
             if inside < 2:
                 j = int(np.clip(np.searchsorted(ln, lo[i]), 1, len(ln) - 1))
                 cell = ln[j] - ln[j - 1]
-                now = "derived" if settings.min_cell_m is None else f"{settings.min_cell_m*1e3:g} mm"
                 raise MeshRefused(f"{p.name}: the part is {(hi[i] - lo[i])*1e3:.4g} mm thick along {a}, thinner "
                                   f"than the {cell*1e3:.4g} mm cell there; lower min_cell_mm (now {now}) or "
                                   "thicken the part")
+            cuts = np.sort(np.r_[lo[i], planes[i][0], hi[i]])
+            cuts = cuts[np.r_[True, np.diff(cuts) > 1e-6 * max(np.subtract(hi, lo))]]  # one level per plane
+            for c0, c1 in zip(cuts[:-1], cuts[1:]):
+                if np.count_nonzero((ln >= c0 - tol) & (ln <= c1 + tol)) < 2:
+                    j = int(np.clip(np.searchsorted(ln, c0), 1, len(ln) - 1))
+                    raise MeshRefused(f"{p.name}: the {(c1 - c0)*1e3:.4g} mm between its faces at {a} = "
+                                      f"{c0*1e3:.4g} and {c1*1e3:.4g} mm (a wall, step or gap of the part) is "
+                                      f"thinner than the {(ln[j] - ln[j - 1])*1e3:.4g} mm cell there; lower "
+                                      f"min_cell_mm (now {now}) or change the part")
 
 
 def check_mesh(plan: MeshPlan, model: SceneModel, settings: SolverSettings) -> None:

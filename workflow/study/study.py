@@ -338,11 +338,30 @@ def study_folder(study_or_source) -> Path:
     return Path(src).resolve().parent if src and not src.startswith("<") else Path.cwd()
 
 
+def cad_part_dicts(scene) -> list[dict]:
+    """Every mapping of a scene (edge units or SI) that reads an STL file: a cad antenna, a cad capsule or
+    casing (``shape: cad``), a cad concentrator."""
+    if not isinstance(scene, dict):
+        return []
+    out = []
+    for part in ("external", "implant"):
+        d = scene.get(part)
+        if not isinstance(d, dict):
+            continue
+        if d.get("type") == "cad":
+            out.append(d)
+        for shell in ("capsule", "casing"):
+            if isinstance(d.get(shell), dict) and d[shell].get("shape") == "cad":
+                out.append(d[shell])
+    conc = scene.get("concentrators")
+    out += [c for c in (conc if isinstance(conc, list) else []) if isinstance(c, dict) and c.get("type") == "cad"]
+    return out
+
+
 def absolute_cad_files(scene: dict, folder: Path) -> None:
     """Make the ``file`` of every CAD part of an edge-unit scene absolute, a relative one read from ``folder``."""
-    for part in ("external", "implant"):
-        d = scene.get(part) if isinstance(scene, dict) else None
-        if isinstance(d, dict) and d.get("type") == "cad" and isinstance(d.get("file"), str) and d["file"]:
+    for d in cad_part_dicts(scene):
+        if isinstance(d.get("file"), str) and d["file"]:
             p = Path(d["file"]).expanduser()
             d["file"] = str(p if p.is_absolute() else (folder / p).resolve())
 
