@@ -80,6 +80,17 @@ def _restore(est: dict) -> CostEstimate | None:
         return None
 
 
+def restore(case_ids: list[str], known: dict[str, dict]) -> dict[str, CostEstimate]:
+    """The remembered estimates of ``case_ids`` that read back (the others are missing from the result)."""
+    out: dict[str, CostEstimate] = {}
+    for cid in case_ids:
+        if cid in known and cid not in out:
+            restored = _restore(known[cid])
+            if restored is not None:
+                out[cid] = restored
+    return out
+
+
 def estimates(dicts: list[dict], known: dict[str, dict], compute: Callable[[dict], CostEstimate],
               workers: int | None = None) -> dict[str, CostEstimate | Exception]:
     """Estimates of the cases ``dicts`` (case.json content): from ``known`` where present, else computed.
