@@ -86,6 +86,8 @@ def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
             else:
                 row.update(est.as_row())
                 row["_estimate"] = est
+                if e["case_id"] in missing:
+                    row["_new"] = True
         rows.append(row)
     return rows
 
@@ -94,7 +96,8 @@ def remember_costs(layout, rows: list[dict]) -> None:
     """Store the estimates of ``rows`` in the study folder if it exists (nothing is created for it)."""
     from . import cost_cache
 
-    cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
+    if any(r.get("_new") for r in rows):  # nothing new: the file already holds them all
+        cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
 def _refuse_over_budget(problems: list[str]) -> int:
@@ -163,12 +166,15 @@ def cmd_plan(a) -> int:
     rows = plan_rows(layout, entries, dicts, previous_plan(layout), _store(a))
     w = max([len(r["label"]) for r in rows] + [5])
     print(f"{'case_id':<14} {'label':<{w}} {'state':<9} {'cells':>10} {'timesteps':>10} {'memory':>9} {'CPU time':>10}  note")
+    lines = []
     for r in rows:
         has = r["state"] == "to solve"
-        print(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<9} "
-              f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
-              f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
-              f"{(fmt_bytes(r['memory_B']) if has else '-'):>9} {(fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
+        lines.append(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<9} "
+                     f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
+                     f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
+                     f"{(fmt_bytes(r['memory_B']) if has else '-'):>9} {(fmt_cpu(r['cpu_s']) if has else '-'):>10}  "
+                     f"{r['note']}")
+    print("\n".join(lines))
     counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to solve", "to finish", "failed")}
     changed = sum(r["note"].startswith("changed") for r in rows)
     todo = [r for r in rows if r["state"] == "to solve"]
@@ -182,11 +188,10 @@ def cmd_plan(a) -> int:
           + (f" ({changed} changed since the last plan)" if changed else "")
           + f"; to solve: {cells:.0f} cells, CPU time {fmt_cpu(cpu)}, largest memory {fmt_bytes(mem)}, "
           + f"disk {fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
-    from .study.uncertainty import budget_note
+    if exp.raw.get("uncertainty") is not None:
+        from .study.uncertainty import budget_note
 
-    note = budget_note(exp.raw, entries, layout)
-    if note:
-        print(note)
+        print(budget_note(exp.raw, entries, layout))
     problems = _study_budget_problems(exp, rows, a)
     if problems and not a.accept_cost:
         return _refuse_over_budget(problems)

@@ -35,11 +35,15 @@ def _expand(study_path: str, results_dir: str):
 def _expansion(study_path: str, results_dir: str):
     """The study's :class:`~bodysweep.workflow.expansion.Expansion` (remembered or fresh); a StudyError or
     ValueError becomes StudyUnusable."""
-    from .expansion import expand_once
-    from .study.errors import StudyError
+    from .expansion import expand_once, remembered
 
     if not Path(study_path).is_file():
         raise StudyUnusable(f"{study_path}: no such study file")
+    found = remembered(study_path, results_dir)  # without importing the study layer (a second of imports)
+    if found is not None:
+        return found
+    from .study.errors import StudyError
+
     try:
         return expand_once(study_path, results_dir)
     except StudyError as exc:

@@ -228,11 +228,10 @@ def case_state(layout: StudyLayout, entry: dict, previous: dict[str, str] | None
         if str(m.get("status")) in OK_STATUSES:
             return "done", ""
         return "failed", str(m.get("reason", ""))
-    root = _store_of(layout, store)
     solved = bool(sid) and (_present is None or sid in _present[1]) and \
-        solve_state(Path(root) / sid, entry.get("ports", [1])) == "solved"
+        solve_state(_store_of(layout, store) / sid, entry.get("ports", [1])) == "solved"
     state = TO_FINISH if solved else TO_SOLVE
-    old = (previous or {}).get(parameter_key(entry.get("parameters", {})))
+    old = previous.get(parameter_key(entry.get("parameters", {}))) if previous else None
     if old is not None and old != entry["case_id"]:
         return state, f"changed (was {old})"
     return state, ""
@@ -247,7 +246,8 @@ def _names_in(folder: Path) -> set[str]:
 
 def case_states(layout: StudyLayout, entries: list[dict], previous: dict[str, str] | None = None,
                 store: Path | None = None) -> list[tuple[str, str]]:
-    present = (_names_in(layout.cases_dir), _names_in(_store_of(layout, store)))
+    store = _store_of(layout, store)
+    present = (_names_in(layout.cases_dir), _names_in(store))
     return [case_state(layout, e, previous, store, present) for e in entries]
 
 
