@@ -41,8 +41,6 @@ from .layout import StudyLayout
 
 #: layout of the two files (a change gives other keys)
 FORMAT = 1
-ENTRIES_FILE = "expansion.json"
-CASES_FILE = "expansion_cases.json"
 
 #: folders (package, sub-folder) and single modules whose source decides an expansion
 _CODE_TREES = (("bodysweep.geometry", ""), ("bodysweep.workflow", "study"), ("bodysweep.workflow", "schema"))
@@ -215,8 +213,8 @@ class Expansion:
             cases_text = json.dumps({"key": self.key, "cases": self.dicts}, separators=(",", ":"), allow_nan=False)
         except (TypeError, ValueError):  # not plain JSON data: simply not remembered
             return False
-        write_text(self.layout.root / CASES_FILE, cases_text)
-        write_text(self.layout.root / ENTRIES_FILE, head_text)  # last: its key vouches for both
+        write_text(self.layout.expansion_cases_file, cases_text)
+        write_text(self.layout.expansion_file, head_text)  # last: its key vouches for both
         self.remembered = True
         return True
 
@@ -236,7 +234,7 @@ def _expand_dicts(study) -> list[dict]:
 
 def _read_cases(layout: StudyLayout, key: str) -> list[dict] | None:
     try:
-        data = json.loads((layout.root / CASES_FILE).read_bytes())
+        data = json.loads(layout.expansion_cases_file.read_bytes())
     except (OSError, ValueError):
         return None
     if not isinstance(data, dict) or data.get("key") != key or not isinstance(data.get("cases"), list):
@@ -252,7 +250,7 @@ def remembered(study_path: str | Path, results_dir: str | Path, key: str | None 
     try:
         layout = StudyLayout.of(name, results_dir)
         key = key or expansion_key(study_path)
-        data = json.loads((layout.root / ENTRIES_FILE).read_bytes())
+        data = json.loads(layout.expansion_file.read_bytes())
     except (OSError, ValueError):
         return None
     if not isinstance(data, dict) or data.get("key") != key or data.get("name") != name:

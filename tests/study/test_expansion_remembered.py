@@ -156,7 +156,7 @@ def test_a_torn_cases_file_is_not_trusted(study, tmp_path):
     results = tmp_path / "results"
     (results / "identity_fixed").mkdir(parents=True)
     expand_once(study, results).save()
-    cases = results / "identity_fixed" / expansion.CASES_FILE
+    cases = expand_once(study, results).layout.expansion_cases_file
     data = json.loads(cases.read_text())
     data["key"] = "another key"
     cases.write_text(json.dumps(data))
