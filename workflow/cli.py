@@ -47,14 +47,17 @@ def _versions() -> str:
     return "\n".join(parts)
 
 
-from .cli_support import StudyUnusable, _build_model, _check_geometry, _err, _expand  # noqa: F401 (re-exported)
+from .cli_support import (StudyUnusable, _build_model, _check_expansion_geometry, _check_geometry, _err,  # noqa: F401
+                          _expand, _expansion)
 
 
 # -- cost ------------------------------------------------------------------------------------------------
 def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
     """One row per case: state and, for cases still to solve, the mesh and cost estimate.
 
-    Estimates (:func:`bodysweep.workflow.estimate.case_estimate`) are remembered in the study folder
+    ``dicts``: the cases' ``case.json`` contents in the order of ``entries``, or a function giving them
+    (called only when an estimate is not remembered). Estimates
+    (:func:`bodysweep.workflow.estimate.case_estimate`) are remembered in the study folder
     (:mod:`bodysweep.workflow.cost_cache`) and computed in worker processes when many are missing; call
     :func:`remember_costs` to store them.
     """
@@ -63,15 +66,19 @@ def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
     from .pipeline import case_states
 
     states = case_states(layout, entries, previous, store)
-    need = [d for d, (state, _) in zip(dicts, states) if state == "to solve"]
-    known = cost_cache.load(layout.root)
-    # a solve already meshed in the store (mesh.json) is not meshed again
-    found = cost_cache.estimates(need, known, partial(case_estimate, store=store) if store is not None else case_estimate)
+    need = [e["case_id"] for e, (state, _) in zip(entries, states) if state == "to solve"]
+    found = cost_cache.restore(need, cost_cache.load(layout.root))
+    missing = {cid for cid in need if cid not in found}
+    if missing:
+        cases = dicts() if callable(dicts) else dicts
+        # a solve already meshed in the store (mesh.json) is not meshed again
+        compute = partial(case_estimate, store=store) if store is not None else case_estimate
+        found.update(cost_cache.estimates([d for d in cases if d["case_id"] in missing], {}, compute))
     rows = []
-    for e, d, (state, why) in zip(entries, dicts, states):
+    for e, (state, why) in zip(entries, states):
         row = {"case_id": e["case_id"], "label": e["label"], "state": state, "note": why}
         if state == "to solve":
-            est = found[d["case_id"]]
+            est = found[e["case_id"]]
             if isinstance(est, Exception):  # a case the mesher refuses shows up as such, not as a crash
                 row["_refused"] = " ".join(str(est).split())
                 row.update({"cells": float("nan"), "timesteps": float("nan"), "memory_B": float("nan"),
@@ -79,6 +86,8 @@ def plan_rows(layout, entries, dicts, previous, store=None) -> list[dict]:
             else:
                 row.update(est.as_row())
                 row["_estimate"] = est
+                if e["case_id"] in missing:
+                    row["_new"] = True
         rows.append(row)
     return rows
 
@@ -87,7 +96,8 @@ def remember_costs(layout, rows: list[dict]) -> None:
     """Store the estimates of ``rows`` in the study folder if it exists (nothing is created for it)."""
     from . import cost_cache
 
-    cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
+    if any(r.get("_new") for r in rows):  # nothing new: the file already holds them all
+        cost_cache.remember(layout.root, {r["case_id"]: r["_estimate"] for r in rows if "_estimate" in r})
 
 
 def _refuse_over_budget(problems: list[str]) -> int:
@@ -108,25 +118,34 @@ def _refuse_mesh(case: dict, reason: str) -> None:
     raise StudyUnusable(f"case {case['case_id']} ({case.get('label', '')}): mesh: {reason}")
 
 
-def _check_meshes(layout, dicts: list[dict]) -> int:
+def _check_meshes(layout, entries: list[dict], dicts) -> int:
     """Mesh every case as the solver step will (the path of ``plan``'s estimates, remembered ones reused);
-    raise StudyUnusable naming the first case the solver would refuse. Writes nothing."""
+    raise StudyUnusable naming the first case the solver would refuse. Writes nothing.
+
+    ``dicts``: the cases (order of ``entries``) or a function giving them, called only when an estimate
+    is not remembered."""
     from . import cost_cache
 
     from .estimate import case_estimate
 
-    found = cost_cache.estimates(dicts, cost_cache.load(layout.root), case_estimate)
-    for d in dicts:
-        if isinstance(found[d["case_id"]], Exception):
-            _refuse_mesh(d, " ".join(str(found[d["case_id"]]).split()))
+    ids = [e["case_id"] for e in entries]
+    found = cost_cache.restore(ids, cost_cache.load(layout.root))
+    if len(found) < len(set(ids)):
+        cases = dicts() if callable(dicts) else dicts
+        found.update(cost_cache.estimates([d for d in cases if d["case_id"] not in found], {}, case_estimate))
+    for e in entries:
+        if isinstance(found[e["case_id"]], Exception):
+            _refuse_mesh(e, " ".join(str(found[e["case_id"]]).split()))
     return len(found)
 
 
 def cmd_check(a) -> int:
-    study, layout, entries, dicts = _expand(a.study, a.results_dir)
-    n_scenes = _check_geometry(dicts)
-    n_meshes = _check_meshes(layout, dicts)
-    print(f"study {study.name!r}: {len(entries)} cases ({n_scenes} distinct scenes built without error, "
+    exp = _expansion(a.study, a.results_dir)
+    layout = exp.layout
+    entries, dicts = exp.cases()
+    n_scenes = _check_expansion_geometry(exp)
+    n_meshes = _check_meshes(layout, entries, dicts)
+    print(f"study {exp.name!r}: {len(entries)} cases ({n_scenes} distinct scenes built without error, "
           f"{n_meshes} meshes the solver accepts)")
     print(f"results would go to {layout.root}")
     return EXIT_OK
@@ -141,16 +160,21 @@ def _store(a) -> Path:
 def cmd_plan(a) -> int:
     from .pipeline import previous_plan
 
-    study, layout, entries, dicts = _expand(a.study, a.results_dir)
+    exp = _expansion(a.study, a.results_dir)
+    layout = exp.layout
+    entries, dicts = exp.cases()
     rows = plan_rows(layout, entries, dicts, previous_plan(layout), _store(a))
     w = max([len(r["label"]) for r in rows] + [5])
     print(f"{'case_id':<14} {'label':<{w}} {'state':<9} {'cells':>10} {'timesteps':>10} {'memory':>9} {'CPU time':>10}  note")
+    lines = []
     for r in rows:
         has = r["state"] == "to solve"
-        print(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<9} "
-              f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
-              f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
-              f"{(fmt_bytes(r['memory_B']) if has else '-'):>9} {(fmt_cpu(r['cpu_s']) if has else '-'):>10}  {r['note']}")
+        lines.append(f"{r['case_id']:<14} {r['label']:<{w}} {r['state']:<9} "
+                     f"{(format(r['cells'], '10.0f') if has and r['cells'] == r['cells'] else '-'):>10} "
+                     f"{(format(r['timesteps'], '10.0f') if has and r['timesteps'] == r['timesteps'] else '-'):>10} "
+                     f"{(fmt_bytes(r['memory_B']) if has else '-'):>9} {(fmt_cpu(r['cpu_s']) if has else '-'):>10}  "
+                     f"{r['note']}")
+    print("\n".join(lines))
     counts = {s: sum(r["state"] == s for r in rows) for s in ("done", "to solve", "to finish", "failed")}
     changed = sum(r["note"].startswith("changed") for r in rows)
     todo = [r for r in rows if r["state"] == "to solve"]
@@ -164,34 +188,36 @@ def cmd_plan(a) -> int:
           + (f" ({changed} changed since the last plan)" if changed else "")
           + f"; to solve: {cells:.0f} cells, CPU time {fmt_cpu(cpu)}, largest memory {fmt_bytes(mem)}, "
           + f"disk {fmt_bytes(disk)} (failed cases rerun only with `run --retry-failed`)")
-    from .study.uncertainty import budget_note
+    if exp.raw.get("uncertainty") is not None:
+        from .study.uncertainty import budget_note
 
-    note = budget_note(study.raw, entries, layout)
-    if note:
-        print(note)
-    problems = _study_budget_problems(study, rows, a)
+        print(budget_note(exp.raw, entries, layout))
+    problems = _study_budget_problems(exp, rows, a)
     if problems and not a.accept_cost:
         return _refuse_over_budget(problems)
     remember_costs(layout, rows)
+    exp.save()  # only into a study folder that exists
     return EXIT_OK
 
 
 def cmd_run(a) -> int:
     from .pipeline import previous_plan
 
-    study, layout, entries, dicts = _expand(a.study, a.results_dir)
-    _check_geometry(dicts)
+    exp = _expansion(a.study, a.results_dir)  # the one expansion of this run (prepare and Snakemake reuse it)
+    layout = exp.layout
+    entries, dicts = exp.cases()
+    _check_expansion_geometry(exp)
     rows: list[dict] = []
     if not a.accept_cost:
         rows = plan_rows(layout, entries, dicts, previous_plan(layout), _store(a))
-        for d, r in zip(dicts, rows):  # a case the solver would refuse stops the run before any job
+        for e, r in zip(entries, rows):  # a case the solver would refuse stops the run before any job
             if r.get("_refused"):
-                _refuse_mesh(d, r["_refused"])
-        problems = _study_budget_problems(study, rows, a)
+                _refuse_mesh(e, r["_refused"])
+        problems = _study_budget_problems(exp, rows, a)
         if problems:
             return _refuse_over_budget(problems)
     else:
-        _check_meshes(layout, dicts)
+        _check_meshes(layout, entries, dicts)
     from .runlock import StudyBusy
 
     from datetime import datetime, timezone
@@ -201,7 +227,7 @@ def cmd_run(a) -> int:
         with _run_lock(layout, log) as lock:
             if rows:
                 remember_costs(layout, rows)  # the study folder exists once the lock is taken
-            return _run_locked(a, lock, log)
+            return _run_locked(a, lock, log, exp)
     except StudyBusy as exc:
         _err(str(exc))
         return EXIT_BUSY
@@ -222,7 +248,7 @@ def _run_lock(layout, log: Path):
     return lock
 
 
-def _run_locked(a, lock, log: Path) -> int:
+def _run_locked(a, lock, log: Path, exp) -> int:
     from .pipeline import (mark_unfinished, prepare, reset_failed, run_snakemake, snakemake_args, case_states)
     from .runlock import clear_interrupted
 
@@ -235,7 +261,7 @@ def _run_locked(a, lock, log: Path) -> int:
     settled = settle_incomplete(lock.layout, ".", (_store(a),))
     if settled:
         print(f"kept {len(settled)} outputs that an interrupted run finished (not redone)")
-    prep = prepare(a.study, a.results_dir, _store(a))
+    prep = prepare(exp, store=_store(a))
     if a.retry_failed:
         reset = reset_failed(prep.layout, prep.entries, prep.store)
         if reset:
@@ -252,7 +278,7 @@ def _run_locked(a, lock, log: Path) -> int:
 
     site = site_resource_args(resolve_profile(a.profile), a.partition, a.account)
     args = snakemake_args(a.study, results_dir=a.results_dir, store=prep.store, workdir=".", cores=a.cores, jobs=a.jobs,
-                          threads_per_job=a.threads_per_job, profile=a.profile, extra=site)
+                          threads_per_job=a.threads_per_job, profile=a.profile, extra=site, prepared=prep)
     lock_fds = (lock.fd,)  # Snakemake holds the study lock too (runlock module docstring)
     from .interrupt import RunInterrupted, profile_submits
 
@@ -275,12 +301,16 @@ def _run_locked(a, lock, log: Path) -> int:
                                    pass_fds=lock_fds, cluster=cluster)
             except RunInterrupted as exc:
                 return _interrupted(a, exc, lock, prep, log)
-    if rc == 0:  # an uncertainty budget for the best cases: their runs are known once the cases have results
-        again = prepare(a.study, a.results_dir)
+    if rc == 0 and exp.raw.get("uncertainty") is not None:
+        # an uncertainty budget for the best cases: their runs are known once the cases have results
+        again = prepare(exp, store=_store(a))
         added = {e["case_id"] for e in again.entries} - {e["case_id"] for e in prep.entries}
         if added:
             print(f"uncertainty budget: {len(added)} component runs for the best cases")
             prep = again
+            args = snakemake_args(a.study, results_dir=a.results_dir, store=prep.store, workdir=".", cores=a.cores,
+                                  jobs=a.jobs, threads_per_job=a.threads_per_job, profile=a.profile, extra=site,
+                                  prepared=prep)
             try:
                 rc = run_snakemake(args, layout=prep.layout, entries=prep.entries, log_path=log, workdir=".",
                                    pass_fds=lock_fds, cluster=cluster)
@@ -325,17 +355,21 @@ def _snakemake_lock_refused(log: Path) -> bool:
 
 
 def _layout_of(a):
+    from .expansion import remembered
     from .layout import StudyLayout
     from .pipeline import load
     from .study.errors import StudyError
 
     if not Path(a.study).is_file():
         raise StudyUnusable(f"{a.study}: no such study file")
-    try:
-        study = load(a.study)
-    except StudyError as exc:
-        raise StudyUnusable(f"{a.study}: {exc}") from None
-    layout = StudyLayout.of(study.name, a.results_dir)
+    exp = remembered(a.study, a.results_dir)  # the study's name without loading it again, when remembered
+    if exp is not None:
+        layout = exp.layout
+    else:
+        try:
+            layout = StudyLayout.of(load(a.study).name, a.results_dir)
+        except StudyError as exc:
+            raise StudyUnusable(f"{a.study}: {exc}") from None
     if not layout.plan_file.exists():
         raise StudyUnusable(f"{layout.plan_file} does not exist: run `bodysweep run {a.study}` first")
     return layout
@@ -361,7 +395,9 @@ def cmd_report(a) -> int:
 
 
 def cmd_preview(a) -> int:
-    study, layout, entries, dicts = _expand(a.study, a.results_dir)
+    exp = _expansion(a.study, a.results_dir)
+    study, layout = exp, exp.layout
+    dicts = exp.with_budget_runs()[1]
     pick = [d for d in dicts if a.case in (d["case_id"], d.get("label"))]
     if not pick and a.case.isdigit() and int(a.case) < len(dicts):
         pick = [dicts[int(a.case)]]

@@ -32,6 +32,26 @@ def _expand(study_path: str, results_dir: str):
         raise StudyUnusable(f"{study_path}: {' '.join(str(exc).split())}") from None
 
 
+def _expansion(study_path: str, results_dir: str):
+    """The study's :class:`~bodysweep.workflow.expansion.Expansion` (remembered or fresh); a StudyError or
+    ValueError becomes StudyUnusable."""
+    from .expansion import expand_once, remembered
+
+    if not Path(study_path).is_file():
+        raise StudyUnusable(f"{study_path}: no such study file")
+    found = remembered(study_path, results_dir)  # without importing the study layer (a second of imports)
+    if found is not None:
+        return found
+    from .study.errors import StudyError
+
+    try:
+        return expand_once(study_path, results_dir)
+    except StudyError as exc:
+        raise StudyUnusable(f"{study_path}: {exc}") from None
+    except ValueError as exc:
+        raise StudyUnusable(f"{study_path}: {' '.join(str(exc).split())}") from None
+
+
 def _build_model(case: dict):
     from bodysweep.geometry.scene import Scene
 
@@ -50,7 +70,28 @@ def _note_arrangement(case: dict, notes: dict[str, list[str]]) -> None:
 
 
 def _check_geometry(dicts: list[dict]) -> int:
-    """Build every distinct scene once; raise StudyUnusable naming the first case that fails."""
+    """Build every distinct scene once; raise StudyUnusable naming the first case that fails; print the
+    arrangement warnings on stderr. Returns the number of distinct scenes."""
+    n, lines = _geometry_outcome(dicts)
+    _print_notes(lines)
+    return n
+
+
+def _check_expansion_geometry(exp) -> int:
+    """:func:`_check_geometry` of an expansion's cases, its outcome remembered with the expansion."""
+    if exp.geometry is None:
+        exp.note_geometry(*_geometry_outcome(exp.dicts))
+    _print_notes(exp.geometry["notes"])
+    return int(exp.geometry["scenes"])
+
+
+def _print_notes(lines: list[str]) -> None:
+    for line in lines:  # arrangements that may be deliberate: one line each, on stderr
+        print(line, file=sys.stderr)
+
+
+def _geometry_outcome(dicts: list[dict]) -> tuple[int, list[str]]:
+    """``(distinct scenes, warning lines)``; raise StudyUnusable naming the first case that fails."""
     import json
 
     seen: set[str] = set()
@@ -74,7 +115,8 @@ def _check_geometry(dicts: list[dict]) -> int:
             except ValueError as exc:
                 raise StudyUnusable(f"case {d['case_id']} ({d.get('label', '')}): solver.mirror_plane: "
                                     f"{' '.join(str(exc).split())}") from None
-    for text, labels in notes.items():  # arrangements that may be deliberate: one line each, on stderr
+    lines = []
+    for text, labels in notes.items():
         more = f" and {len(labels) - 2} more" if len(labels) > 2 else ""
-        print(f"warning: {text} (case {', '.join(labels[:2])}{more})", file=sys.stderr)
-    return len(seen)
+        lines.append(f"warning: {text} (case {', '.join(labels[:2])}{more})")
+    return len(seen), lines

@@ -31,13 +31,14 @@ PARALLEL_FROM = 64
 
 def code_signature() -> str:
     """Hash of the source files whose change alters an estimate (mesh, cost model, disk estimate, builders)."""
-    from . import budget, estimate
-    from .solver import cost, mesh, mesh_fill, settings
+    from importlib.util import find_spec
+
     import bodysweep.geometry as geometry
 
     h = hashlib.sha256()
-    for mod in (mesh, mesh_fill, cost, settings, budget, estimate):
-        h.update(Path(mod.__file__).read_bytes())
+    for mod in ("solver.mesh", "solver.mesh_fill", "solver.cost", "solver.settings", "budget", "estimate"):
+        # the files, found without running them (a warm plan need not import the mesher)
+        h.update(Path(find_spec(f"bodysweep.workflow.{mod}").origin).read_bytes())
     h.update(str(geometry.BUILDER_VERSION).encode())
     return h.hexdigest()[:16]
 
@@ -78,6 +79,17 @@ def _restore(est: dict) -> CostEstimate | None:
         return CostEstimate.from_dict(est)
     except (ValueError, TypeError, AttributeError):
         return None
+
+
+def restore(case_ids: list[str], known: dict[str, dict]) -> dict[str, CostEstimate]:
+    """The remembered estimates of ``case_ids`` that read back (the others are missing from the result)."""
+    out: dict[str, CostEstimate] = {}
+    for cid in case_ids:
+        if cid in known and cid not in out:
+            restored = _restore(known[cid])
+            if restored is not None:
+                out[cid] = restored
+    return out
 
 
 def estimates(dicts: list[dict], known: dict[str, dict], compute: Callable[[dict], CostEstimate],

@@ -71,6 +71,16 @@ class StudyLayout:
         """The remembered cost estimates of the study's cases (:mod:`.cost_cache`)."""
         return self.root / "cost_estimates.json"
 
+    @property
+    def expansion_file(self) -> Path:
+        """The remembered expansion of the study: entries, settings, key (:mod:`.expansion`)."""
+        return self.root / "expansion.json"
+
+    @property
+    def expansion_cases_file(self) -> Path:
+        """The remembered expansion's ``case.json`` contents (:mod:`.expansion`)."""
+        return self.root / "expansion_cases.json"
+
     def table_files(self) -> list[Path]:
         """The table files the collect step writes (Parquet and CSV of each table)."""
         return [self.tables_dir / f"{n}.{ext}" for n in TABLE_NAMES for ext in ("parquet", "csv")]

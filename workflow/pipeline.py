@@ -31,6 +31,7 @@ from typing import Any, Callable, Iterable
 
 from .atomic import json_text, write_if_changed
 from .casefolder import KEPT_ON_RESET, CaseFolder, SolveFolder
+from .expansion import Expansion, expand_once, plan_entry, study_settings  # noqa: F401 (re-exported)
 from .layout import StudyLayout, read_plan, write_plan
 from .progress import running_progress
 
@@ -67,14 +68,6 @@ def parameter_key(parameters: dict) -> str:
     return json.dumps(parameters, sort_keys=True, separators=(",", ":"), default=str)
 
 
-def plan_entry(case_dict: dict) -> dict:
-    """The plan entry of one case (what collectors and the Snakefile need without opening case.json)."""
-    ports = case_dict.get("excite_ports") or (case_dict.get("solver") or {}).get("excite_ports") or [1]
-    return {"case_id": case_dict["case_id"], "solve_id": case_dict.get("solve_id"), "label": case_dict.get("label", ""),
-            "parameters": case_dict.get("parameters", {}), "frequency_Hz": case_dict.get("frequency_Hz"),
-            "ports": [int(p) for p in ports], **({"budget": case_dict["budget"]} if case_dict.get("budget") else {})}
-
-
 @dataclass
 class Prepared:
     """Result of :func:`prepare`."""
@@ -85,6 +78,15 @@ class Prepared:
     previous: dict[str, str] = field(default_factory=dict)  # parameter key -> case id of the last plan
     written: int = 0  # case.json files (re)written
     store: Path = Path("results") / "_solves"  # the shared store of solves (see .store)
+    digest: str = ""  # of plan.json as written (:func:`plan_digest`), handed to Snakemake
+
+
+def plan_digest(layout: StudyLayout) -> str:
+    """sha256 of the study's ``plan.json`` bytes: ``bodysweep run`` gives it to Snakemake, whose Snakefile
+    then reads that plan instead of expanding the study again (:func:`snakefile_context`)."""
+    import hashlib
+
+    return hashlib.sha256(layout.plan_file.read_bytes()).hexdigest()
 
 
 def expand_study(study_path: str | Path, results_dir: str | Path = "results") -> tuple[Any, StudyLayout, list[dict], list[dict]]:
@@ -107,42 +109,32 @@ def previous_plan(layout: StudyLayout) -> dict[str, str]:
     return {parameter_key(e.get("parameters", {})): e["case_id"] for e in cases}
 
 
-def study_settings(study) -> dict:
-    """What the tables and the report need from the study file beyond its cases (never part of a case id)."""
-    from .study.schema import study_schema
-
-    sar = study.raw["sar"]
-    default_limits = study_schema()["properties"]["sar"]["properties"]["limits"]["default"]
-    return {"description": study.description, "figure_of_merit": study.raw.get("figure_of_merit", "implant_power"),
-            "baseline": study.raw.get("baseline"), "excite": list(study.excite_ports),
-            "limits": [dict(lim) for lim in sar["limits"]], "limits_are_defaults": sar["limits"] == default_limits,
-            "solver_preset": (study.raw.get("solver") or {}).get("preset", "standard"),
-            "parameter_paths": {n: p.path for n, p in study.parameters.items()}}
-
-
-def prepare(study_path: str | Path, results_dir: str | Path = "results", store: str | Path | None = None) -> Prepared:
+def prepare(study: str | Path | Expansion, results_dir: str | Path = "results", store: str | Path | None = None) -> Prepared:
     """Write every case folder's ``case.json``, the study's ``plan.json`` and each solve's ``solve.json``
-    in the store (:func:`.store.store_root` of ``results_dir`` and ``store``), each only if changed."""
+    in the store (:func:`.store.store_root` of ``results_dir`` and ``store``), each only if changed.
+
+    ``study`` is a study file (expanded here, or read from its remembered expansion) or an
+    :class:`~bodysweep.workflow.expansion.Expansion` already made (then nothing is expanded again; its
+    ``results_dir`` is the expansion's). The expansion is remembered in the study folder.
+    """
     from . import store as solves
 
-    study, layout, entries, dicts = expand_study(study_path, results_dir)
-    root = solves.store_root(results_dir, store)
+    exp = study if isinstance(study, Expansion) else expand_once(study, results_dir)
+    layout = exp.layout
+    entries, dicts = exp.with_budget_runs()
+    root = solves.store_root(layout.root.parent, store)
     ids = [e["case_id"] for e in entries]
     if len(set(ids)) != len(ids):
-        dup = sorted({i for i in ids if ids.count(i) > 1})
-        raise ValueError(f"study {study.name!r}: {len(ids) - len(set(ids))} cases are identical to others "
+        seen: set[str] = set()
+        dup = sorted({i for i in ids if i in seen or seen.add(i)})
+        raise ValueError(f"study {exp.name!r}: {len(ids) - len(set(ids))} cases are identical to others "
                          f"(case ids {dup[:5]}); remove the duplicate sweep points")
     previous = previous_plan(layout)
     written = 0
     for d in dicts:
         written += write_case_json(CaseFolder(layout.case_dir(d["case_id"])).case_file, d)
-    from .study.uncertainty import budget_settings
-
-    settings = study_settings(study)
-    budget = budget_settings(study.raw)
-    if budget is not None:
-        settings["uncertainty"] = budget
-    write_plan(layout, study.name, entries, settings)
+    write_plan(layout, exp.name, entries, exp.settings)
+    exp.save()  # the study folder exists now
     solves.register_study(root, layout.root)  # after plan.json: the clean-up sees these solves referenced
     done: set[str] = set()
     for d in dicts:
@@ -150,7 +142,7 @@ def prepare(study_path: str | Path, results_dir: str | Path = "results", store: 
             done.add(d["solve_id"])
             solves.write_solve_record(root, d)
         link_solve(layout.case_dir(d["case_id"]), root / d["solve_id"])
-    return Prepared(study, layout, entries, previous, written, root)
+    return Prepared(exp, layout, entries, previous, written, root, plan_digest(layout))
 
 
 def link_solve(case_dir: Path, solve_dir: Path) -> None:
@@ -219,32 +211,44 @@ def _store_of(layout: StudyLayout, store: Path | None) -> Path:
 
 
 def case_state(layout: StudyLayout, entry: dict, previous: dict[str, str] | None = None,
-               store: Path | None = None) -> tuple[str, str]:
+               store: Path | None = None, _present: tuple[set, set] | None = None) -> tuple[str, str]:
     """``(state, note)`` of a case: ``done``, ``failed``, ``to finish`` or ``to solve``.
 
     ``to finish``: the case's solve is in the store (``store``, default ``<results>/_solves``), only the
     finish step is left. The note says ``changed (was <old id>)`` when the same sweep point was in the
     last plan under another case id (its inputs changed) and the new folder has no result yet.
+    ``_present``: the names in the cases folder and in the store (:func:`case_states` lists them once),
+    so that folders known absent are not opened.
     """
     from .store import solve_state
 
-    m = CaseFolder(layout.case_dir(entry["case_id"])).read_metrics()
+    cid, sid = entry["case_id"], entry.get("solve_id")
+    m = CaseFolder(layout.case_dir(cid)).read_metrics() if _present is None or cid in _present[0] else None
     if m is not None:
         if str(m.get("status")) in OK_STATUSES:
             return "done", ""
         return "failed", str(m.get("reason", ""))
-    root = _store_of(layout, store)
-    sid = entry.get("solve_id")
-    state = TO_FINISH if sid and solve_state(Path(root) / sid, entry.get("ports", [1])) == "solved" else TO_SOLVE
-    old = (previous or {}).get(parameter_key(entry.get("parameters", {})))
+    solved = bool(sid) and (_present is None or sid in _present[1]) and \
+        solve_state(_store_of(layout, store) / sid, entry.get("ports", [1])) == "solved"
+    state = TO_FINISH if solved else TO_SOLVE
+    old = previous.get(parameter_key(entry.get("parameters", {}))) if previous else None
     if old is not None and old != entry["case_id"]:
         return state, f"changed (was {old})"
     return state, ""
 
 
+def _names_in(folder: Path) -> set[str]:
+    try:
+        return set(os.listdir(folder))
+    except (FileNotFoundError, NotADirectoryError):
+        return set()
+
+
 def case_states(layout: StudyLayout, entries: list[dict], previous: dict[str, str] | None = None,
                 store: Path | None = None) -> list[tuple[str, str]]:
-    return [case_state(layout, e, previous, store) for e in entries]
+    store = _store_of(layout, store)
+    present = (_names_in(layout.cases_dir), _names_in(store))
+    return [case_state(layout, e, previous, store, present) for e in entries]
 
 
 def reset_failed(layout: StudyLayout, entries: Iterable[dict], store: Path | None = None) -> list[str]:
@@ -324,11 +328,18 @@ def snakemake_args(study_path: str | Path, *, results_dir: str | Path = "results
                    workdir: str | Path = ".",
                    cores: int | None = None, jobs: int | None = None, threads_per_job: int | None = None,
                    profile: str | None = "local", targets: Iterable[str] = (), dry_run: bool = False,
-                   extra: Iterable[str] = ()) -> list[str]:
-    """The ``snakemake`` command line for a study (without the interpreter prefix)."""
-    args = ["--snakefile", str(SNAKEFILE), "--directory", str(Path(workdir).resolve()),
-            "--configfile", str(Path(study_path).resolve()),
-            "--config", f"study_file={Path(study_path).resolve()}", f"results_dir={results_dir}"]
+                   extra: Iterable[str] = (), prepared: Prepared | None = None) -> list[str]:
+    """The ``snakemake`` command line for a study (without the interpreter prefix).
+
+    ``prepared``: the preparation just made (:func:`prepare`); the Snakefile then reads its ``plan.json``
+    (checked against its digest) instead of expanding the study, and its jobs need not load the study.
+    """
+    args = ["--snakefile", str(SNAKEFILE), "--directory", str(Path(workdir).resolve())]
+    if prepared is None:  # the Snakefile reads the study file (Snakemake parses it as its config)
+        args += ["--configfile", str(Path(study_path).resolve())]
+    args += ["--config", f"study_file={Path(study_path).resolve()}", f"results_dir={results_dir}"]
+    if prepared is not None:  # the Snakefile reads the plan just written; Snakemake need not parse the study
+        args += [f"study_name={prepared.layout.root.name}", f"plan_digest={prepared.digest}"]
     if store is not None:
         args.append(f"solve_store={store}")
     if threads_per_job is not None:
@@ -539,21 +550,31 @@ def default_threads_per_job() -> int:
 
 
 def snakefile_context(config: dict, *, main_process: bool, configfiles: list | None = None) -> SnakefileContext:
-    """Prepare (main process) or read (job processes) the study the Snakefile was started with.
+    """The cases of the study the Snakefile was started with.
 
-    The study file is ``config["study_file"]`` (set by ``bodysweep run``) or the last ``--configfile``.
+    Started by ``bodysweep run`` (config ``study_name`` and ``plan_digest``): the ``plan.json`` that run
+    just wrote, nothing expanded, the study file not even read; a plan whose digest differs (changed
+    since) is refused. Started by hand (``snakemake --configfile STUDY``): the main process prepares the
+    study (:func:`prepare`, from its remembered expansion when nothing changed), job processes read the
+    plan. The study file is ``config["study_file"]`` or the last ``--configfile``.
     """
-    study_file = config.get("study_file") or (str(configfiles[-1]) if configfiles else None)
-    if not study_file:
-        raise ValueError("no study given: run `snakemake --configfile studies/<study>.yaml` or `bodysweep run <study>.yaml`")
     results_dir = config.get("results_dir", "results")
     threads = int(config.get("threads_per_job") or default_threads_per_job())
     from .store import store_root
 
     store = store_root(results_dir, config.get("solve_store"))
+    name, digest = config.get("study_name"), config.get("plan_digest")
+    if name and digest:
+        layout = StudyLayout.of(str(name), results_dir)
+        if main_process and plan_digest(layout) != str(digest):
+            raise ValueError(f"{layout.plan_file} changed after `bodysweep run` prepared it (another preparation "
+                             "of the same study?); run the study again")
+        return SnakefileContext(layout, tuple(read_plan(layout)["cases"]), threads, store)
+    study_file = config.get("study_file") or (str(configfiles[-1]) if configfiles else None)
+    if not study_file:
+        raise ValueError("no study given: run `snakemake --configfile studies/<study>.yaml` or `bodysweep run <study>.yaml`")
     if main_process:
         prep = prepare(study_file, results_dir, store)
         return SnakefileContext(prep.layout, tuple(prep.entries), threads, store)
-    study = load(study_file)
-    layout = StudyLayout.of(study.name, results_dir)
+    layout = StudyLayout.of(load(study_file).name, results_dir)
     return SnakefileContext(layout, tuple(read_plan(layout)["cases"]), threads, store)

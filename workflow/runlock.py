@@ -183,10 +183,12 @@ def _study_root_of(args: list[str], cwd: Path) -> Path | None:
         return None
     study_file = Path(given)
     study_file = study_file if study_file.is_absolute() else cwd / study_file
-    try:
-        name = yaml.safe_load(study_file.read_text()).get("study")
-    except Exception:
-        return None
+    name = config.get("study_name")  # given by `bodysweep run`
+    if not name:
+        try:
+            name = yaml.safe_load(study_file.read_text()).get("study")
+        except Exception:
+            return None
     results = Path(config.get("results_dir", "results"))
     results = results if results.is_absolute() else workdir / results
     return (results / str(name)).resolve()

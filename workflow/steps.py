@@ -34,17 +34,15 @@ def _failed(d: dict | None) -> bool:
 
 
 def _placeholder_png(path: Path, text: str) -> None:
-    import matplotlib
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig = plt.figure(figsize=(6, 2))
+    fig = Figure(figsize=(6, 2))
+    FigureCanvasAgg(fig)
     fig.text(0.02, 0.5, "\n".join(text[i:i + 90] for i in range(0, min(len(text), 360), 90)), va="center",
              fontsize=8)
     with atomic_path(path) as tmp:
-        fig.savefig(tmp, dpi=80)
-    plt.close(fig)
+        fig.savefig(tmp, dpi=80, format="png")
 
 
 # -- scene ---------------------------------------------------------------------------------------------

@@ -48,7 +48,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.ndimage import maximum_filter1d
 
 from .sar import cell_centres
 from .sar_cubes import (CHUNK, FACE_DIRS, CubeTables, check_inputs, face_offsets, faces_touch_tissue,
@@ -193,8 +192,28 @@ def _enclosed_max(valid_idx, avg_valid, lo, hi, edges, shape):
         for ax in range(3):
             w = 1 << int(kk[ax])
             if w > 1:
-                S = maximum_filter1d(S, w, axis=ax, mode="constant", cval=-np.inf, origin=(w - 1) - w // 2)
+                S = trailing_max(S, w, ax)
         np.maximum(out, S, out=out)
+    return out
+
+
+def trailing_max(a: np.ndarray, w: int, axis: int) -> np.ndarray:
+    """``out[..., v, ...] = max(a[..., v - w + 1 : v + 1, ...])`` along ``axis`` (indices before 0 count as
+    ``-inf``), for ``w`` a power of two: ``log2(w)`` doublings ``M_2m[v] = max(M_m[v], M_m[v - m])``.
+
+    Exact (a maximum rounds nothing); numpy only, so that the finish step does not import scipy.ndimage.
+    """
+    if w & (w - 1) or w < 1:
+        raise ValueError(f"trailing_max: window {w} is not a power of two")
+    out = np.array(a, dtype=float, copy=True)
+    n = out.shape[axis]
+    m = 1
+    while m < w and m < n:
+        dst = [slice(None)] * out.ndim
+        src = [slice(None)] * out.ndim
+        dst[axis], src[axis] = slice(m, None), slice(0, n - m)
+        np.maximum(out[tuple(dst)], out[tuple(src)].copy(), out=out[tuple(dst)])
+        m *= 2
     return out
 
 

@@ -255,7 +255,7 @@ def reciprocity(S) -> np.ndarray:
 
 
 def write_touchstone(path, f_Hz, S, z0_ohm=50.0, comments=(), *, form: str = "ri") -> Path:
-    """Write S-parameters as a Touchstone (version 1) file through scikit-rf.
+    """Write S-parameters as a Touchstone (version 1) file.
 
     The file is written to a temporary name in the target folder and renamed into place, with the
     same file mode as every other output (:func:`bodysweep.workflow.atomic.atomic_path`).
@@ -279,9 +279,16 @@ def write_touchstone(path, f_Hz, S, z0_ohm=50.0, comments=(), *, form: str = "ri
     -------
     Path
         The written file.
-    """
-    import skrf
 
+    Notes
+    -----
+    Touchstone File Format Specification, version 1.1 (IBIS Open Forum, 2002): comment lines start
+    with ``!``; the option line ``# HZ S RI R 50``; one data line per frequency, the frequency then the
+    entries as pairs, for two ports in the order S11 S21 S12 S22 (the specification's exception),
+    for more ports row by row at most four pairs to a line. Numbers are written with 17 significant
+    digits (read back exactly). Written by bodysweep itself, so that a finish job need not import
+    scikit-rf (and scipy), which cost more start-up time than the rest of the job's imports.
+    """
     S = _check_S(S, "write_touchstone")
     f = np.atleast_1d(np.asarray(f_Hz, dtype=float))
     if f.shape != (S.shape[0],):
@@ -289,22 +296,41 @@ def write_touchstone(path, f_Hz, S, z0_ohm=50.0, comments=(), *, form: str = "ri
     z0 = complex(z0_ohm)
     if z0.imag != 0 or z0.real <= 0:
         raise ValueError(f"write_touchstone: z0_ohm must be real and positive, got {z0_ohm!r}")
+    forms = {"ri": "RI", "ma": "MA", "db": "DB"}
+    if form not in forms:
+        raise ValueError(f"write_touchstone: form must be one of {sorted(forms)}, got {form!r}")
+    if not np.all(np.isfinite(S)):
+        raise ValueError("write_touchstone: S holds NaN or infinite entries; write only what was computed "
+                         "(many Touchstone readers refuse nan)")
     n = S.shape[1]
     target = Path(path).with_suffix(f".s{n}p")
-    ntw = skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=S, z0=z0.real, name=target.stem)
     if isinstance(comments, str):
         comments = [comments]
     lines = []
     for c in comments:
-        lines.extend(str(c).splitlines() or [""])
-    ntw.comments = "\n".join(lines)
-    text = ntw.write_touchstone(return_string=True, form=form, skrf_comment=True)
-    if not np.all(np.isfinite(S)):
-        raise ValueError("write_touchstone: S holds NaN or infinite entries; write only what was computed "
-                         "(many Touchstone readers refuse nan)")
+        lines.extend("!" + ln for ln in (str(c).splitlines() or [""]))
+    lines.append(f"# HZ S {forms[form]} R {format(z0.real, '.17g')}")
+    # entry order: two ports column by column (S11 S21 S12 S22), otherwise row by row
+    order = [(i, j) for j in range(n) for i in range(n)] if n == 2 else [(i, j) for i in range(n) for j in range(n)]
+    num = lambda x: format(float(x), ".17g")  # noqa: E731
+    for k in range(f.size):
+        pairs = []
+        for i, j in order:
+            v = complex(S[k, i, j])
+            if form == "ri":
+                a, b = v.real, v.imag
+            else:
+                mag = abs(v)
+                a = mag if form == "ma" else (20 * np.log10(mag) if mag > 0 else -400.0)
+                b = float(np.degrees(np.angle(v)))
+            pairs.append(f"{num(a)} {num(b)}")
+        per_line = len(pairs) if n <= 2 else 4
+        chunks = [pairs[q:q + per_line] for q in range(0, len(pairs), per_line)]
+        lines.append(num(f[k]) + " " + " ".join(chunks[0]))
+        lines += ["  " + " ".join(c) for c in chunks[1:]]
     from bodysweep.workflow.atomic import atomic_path
 
     with atomic_path(target) as tmp:
         with open(tmp, "w", encoding="ISO-8859-1", newline="\n") as fh:
-            fh.write(text)
+            fh.write("\n".join(lines) + "\n")
     return target
