@@ -221,3 +221,23 @@ def test_cluster_sizing_and_plan_read_the_stored_mesh(tmp_path, tiny_case):
     folder.write_mesh(rec)
     assert case_estimate(tiny_case, store=store).cpu_seconds == 12345.0
     assert case_estimate(tiny_case).cpu_seconds == cost.cpu_seconds
+
+
+def test_scene_step_stores_the_mesh_and_the_engine_process_reads_it(tmp_path, tiny_case):
+    from bodysweep.workflow.solver.mesh import checked_mesh
+    from bodysweep.workflow.solver.run import load_case_inputs
+    from bodysweep.workflow.steps import build_scene
+
+    folder = cf.SolveFolder(tmp_path)
+    folder.record_file.write_text(json.dumps(tiny_case))
+    out = build_scene(folder.dir)
+    assert out.get("status") != "failed" and folder.scene_file.exists()
+    rec = folder.read_mesh()
+    assert rec["status"] == "ok"
+    _, model, settings, plan = load_case_inputs(folder.dir)
+    ref = checked_mesh(model, settings)  # the mesher's own result for the built scene
+    assert np.array_equal(plan.lines_z, ref.lines_z)
+    # the engine process takes the stored lines, it does not mesh again (a doctored line shows it)
+    rec["mesh"]["lines_z"][1] = 0.5 * (rec["mesh"]["lines_z"][0] + rec["mesh"]["lines_z"][1])
+    folder.write_mesh(rec)
+    assert load_case_inputs(folder.dir)[3].lines_z[1] == rec["mesh"]["lines_z"][1] != ref.lines_z[1]
