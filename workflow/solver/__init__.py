@@ -7,5 +7,6 @@ solver-neutral meshing and cost estimate (``mesh``, ``mesh_fill``, ``cost``, ``s
 """
 
 #: bump when a change here alters results (part of every case identity)
-ADAPTER_VERSION = "3"  # 3: solves live in the shared store (solve.json), the band is taken at the finish step
+ADAPTER_VERSION = "4"  # 4: round conductors (cylinders, wires with a radius) count their surface nodes
+# 3: solves live in the shared store (solve.json), the band is taken at the finish step
 # 2: runs judged on their energy trace and length (diverged / truncated fail); half-domain PML thickness fix

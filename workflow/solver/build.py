@@ -105,11 +105,14 @@ def _add_primitive(prop, prim, priority: int, fill_margin: float = 0.0) -> None:
     if isinstance(prim, Box):
         prop.AddBox(list(prim.start), list(prim.stop), priority=priority)
     elif isinstance(prim, Cylinder):
-        prop.AddCylinder(list(prim.start), list(prim.stop), float(prim.radius), priority=priority)
+        # the radius grows by the fill margin: a node on the round surface (where the mesher puts the lines
+        # of the cylinder's extent) is inside, as a box counts its surface, whatever the rounding of the
+        # engine's distance to the axis (see FILL_MARGIN_CELLS)
+        prop.AddCylinder(list(prim.start), list(prim.stop), float(prim.radius) + fill_margin, priority=priority)
     elif isinstance(prim, Wire):
         pts = np.asarray(prim.points, dtype=float).T  # (3, n_points) as CSXCAD wants
         if prim.radius > 0:
-            prop.AddWire(pts, float(prim.radius), priority=priority)
+            prop.AddWire(pts, float(prim.radius) + fill_margin, priority=priority)
         else:
             prop.AddCurve(pts, priority=priority)
     elif isinstance(prim, Polygon):
