@@ -17,7 +17,7 @@ How the lines come about, per axis
 4. **Size limits** (upper bounds on the cell size inside an interval): ``lambda / cells_per_wavelength``
    in each material's bounding box (air elsewhere), layer thickness / ``min_cells_per_layer``,
    gap / ``port_cells`` inside each port gap and at the edges of that antenna's conductors,
-   the tissue zone near conductors (:mod:`.mesh_zones`), region hints. Their lower envelope, made to grow no faster than the grading allows, is the
+   region hints. Their lower envelope, made to grow no faster than the grading allows, is the
    target size field.
 5. **Fill.** Between neighbouring fixed lines, lines are placed so that the cells equidistribute
    the target size field (cells never larger than it), then any neighbour pair still above
@@ -39,7 +39,6 @@ from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Polyhedron, W
 from .mesh_fill import (_GRADING_SLOPE_FRACTION, _GapEnvelope, _axis_lines, _graded_split,  # noqa: F401
                         _integral, _sample_count, _samples, _short_gap_cells, cells_needed, equidistribute,
                         repair_grading, size_envelope)
-from .mesh_zones import tissue_zone_limits
 from .settings import SolverSettings
 
 C0 = 299_792_458.0  # speed of light in vacuum, m/s (SI definition)
@@ -366,8 +365,6 @@ def _requirements(model: SceneModel, settings: SolverSettings, lo: np.ndarray, h
                 for v in sorted({plo[i], phi[i]}):
                     add_line(i, v, P_PORT, f"port {port.number} feed")
                 add_limit(i, plo[i], phi[i], fine, f"port {port.number} feed")
-    for i, z0, z1, h, why in tissue_zone_limits(model, settings):
-        add_limit(i, z0, z1, h, why)
     for hint in model.hints:
         i = AXES.index(hint.axis)
         why = hint.reason or "mesh hint"

@@ -43,12 +43,6 @@ class SolverSettings:
         used next to the conductor edges of that antenna. Allowed 1 ... 20.
     min_cells_per_layer : int
         At least this many cells across each layer (tissue layer, substrate, encapsulation). 1 ... 20.
-    tissue_zone_refinement : float
-        In the tissue zone (tissue within ``tissue_zone_m`` of a conductor or port, where peak SAR and the
-        coupling to an implant are decided) cells are at most ``lambda_tissue / (cells_per_wavelength *
-        tissue_zone_refinement)``. 1 switches the zone off. Allowed 1 ... 8.
-    tissue_zone_m : float
-        Reach of the tissue zone from each conductor and port (metres). Allowed 0 ... 0.2.
     air_margin_wavelengths : float
         Every structure is at least this many free-space wavelengths away from the absorbing
         boundary. Allowed 0.05 ... 2.
@@ -86,8 +80,6 @@ class SolverSettings:
     min_cell_m: float | None = None
     port_cells: int = 3
     min_cells_per_layer: int = 2
-    tissue_zone_refinement: float = 1.0
-    tissue_zone_m: float = 0.0
     air_margin_wavelengths: float = 0.25
     boundary: Literal["pml", "mur"] = "pml"
     pml_cells: int = 8
@@ -114,10 +106,6 @@ class SolverSettings:
         need(_is_int(self.port_cells) and 1 <= self.port_cells <= 20, "port_cells", "an integer from 1 to 20")
         need(_is_int(self.min_cells_per_layer) and 1 <= self.min_cells_per_layer <= 20,
              "min_cells_per_layer", "an integer from 1 to 20")
-        need(_is_number(self.tissue_zone_refinement) and 1.0 <= self.tissue_zone_refinement <= 8.0,
-             "tissue_zone_refinement", "a number from 1 (no zone) to 8")
-        need(_is_number(self.tissue_zone_m) and 0.0 <= self.tissue_zone_m <= 0.2,
-             "tissue_zone_m", "a length from 0 to 0.2 m (tissue_zone_mm 0 to 200)")
         need(_is_number(self.air_margin_wavelengths) and 0.05 <= self.air_margin_wavelengths <= 2.0,
              "air_margin_wavelengths", "a number from 0.05 to 2")
         need(self.boundary in BOUNDARIES, "boundary", f"one of {BOUNDARIES}")
@@ -145,7 +133,7 @@ class SolverSettings:
              "null when engine_sar_average is true (the engine would average the half domain only)")
         # the integer-valued floats are stored as float so that to_dict / from_dict round trip exactly
         for key in ("cells_per_wavelength", "max_growth_ratio", "air_margin_wavelengths", "end_criterion_dB",
-                    "band_fraction", "tissue_zone_refinement", "tissue_zone_m"):
+                    "band_fraction"):
             object.__setattr__(self, key, float(getattr(self, key)))
         if self.min_cell_m is not None:
             object.__setattr__(self, "min_cell_m", float(self.min_cell_m))
