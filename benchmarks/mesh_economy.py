@@ -1,39 +1,35 @@
-"""Mesh economy: the automatic graded mesh against a uniform mesh and against a finer automatic mesh.
+"""Mesh economy: the automatic mesh of each preset against a reference at twice the standard resolution.
 
-    .venv/bin/python benchmarks/mesh_economy.py [--skip-demo]
+    .venv/bin/python benchmarks/mesh_economy.py [--cases tiny,liquid,demo] [--keep FOLDER]
 
-Two cases, each solved by openEMS on several meshes (one thread, one run at a time):
+Cases (each solved by openEMS on every mesh, one thread, one run at a time):
 
-* the first case of the tiny test study (layered slab, short dipoles, 915 MHz) and
-* the first 915 MHz case of the demo study (layered forearm cylinder, wrist loop, capsule loop).
+``tiny``
+    the first case of the tiny test study (layered slab, 30 mm strip dipole 6 mm above the skin, thin-wire
+    implant dipole 6 mm deep, 915 MHz);
+``liquid``
+    ``benchmarks/data/dipole_liquid.yaml``: a half-wave strip dipole 10 mm above a flat box of
+    tissue-simulating liquid (70 x 40 x 20 mm), implant dipole 6 mm deep, 2450 MHz;
+``demo``
+    the first 915 MHz case of the demo study (layered forearm cylinder, wrist loop, capsule loop).
 
-Meshes:
+Meshes: the mesh keys (:data:`MESH_KEYS`) of the ``draft`` and ``standard`` presets, the case's other solver
+settings unchanged, and the reference: the standard preset at twice its resolution (``cells_per_wavelength``,
+``port_cells`` and ``min_cells_per_layer`` doubled).
+Every run gets ``max_timesteps`` 400 000 so that the energy end criterion (the study's) decides.
 
-``auto <preset>``
-    the automatic mesh with the mesh keys (cells per wavelength, cells across a port gap, growth
-    ratio, cells per layer) of a quality preset, the case's other solver settings unchanged;
-    ``auto study`` is the case as its study file sets it (``draft`` with coarser overrides);
-``uniform lambda/20``
-    cells of one size, lambda / 20 in the densest tissue of the case (largest eps_r at the case
-    frequency), no grading; the geometry's fixed lines (interior bounds, port gap ends, conductor
-    edges, sheets, layer faces: the reference plan's fixed lines) are kept so that the same geometry
-    is represented, and every gap between them is split into equal cells no larger than that size;
-``uniform <finest> mm`` (counted, not run)
-    the same with the reference's finest automatic cell everywhere;
-reference
-    the automatic mesh of the next finer preset (tiny: ``fine``, demo: ``standard``; the demo on
-    ``fine`` would be 1.8 M cells, too long for this script).
+Printed per case and mesh: cells, timesteps, solve wall time, S11, the energy balance ((absorbed + delivered) /
+accepted: a mesh that misplaces the accepted power shows here first), and the differences to the reference of peak
+1 g and 10 g averaged SAR per watt accepted and of |S21| at the case frequency; then the targets (standard:
+SAR within 5 % and |S21| within 0.5 dB; draft: SAR within 15 %).
 
-Every run gets ``max_timesteps`` 200 000 so that the energy end criterion (the study's) decides.
-Printed per mesh: cells, timesteps, solve wall time, |S21| at the case frequency, peak 1 g averaged SAR
-per watt accepted, and the differences to the reference; then the issue's targets (uniform / auto
-cells >= 5, |S21| within 0.5 dB, peak 1 g SAR within 5 % of the reference).
-
+Solves are kept in ``--keep FOLDER`` (keyed by the case folder's content) so that a second call reuses them.
 The machine is shared (2 cores, other jobs running openEMS): wall times compare within one run only.
 """
 from __future__ import annotations
 
 import argparse
+import hashlib
 import json
 import math
 import sys
@@ -41,145 +37,116 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-
 ROOT = Path(__file__).resolve().parent.parent
-TINY = ROOT / "tests" / "pipeline" / "data" / "tiny.yaml"
-DEMO = ROOT / "studies" / "demo_forearm_capsule.yaml"
-C0 = 299_792_458.0  # m/s (SI definition)
+CASES = {
+    "tiny": (ROOT / "tests" / "pipeline" / "data" / "tiny.yaml", lambda d: True),
+    "liquid": (ROOT / "benchmarks" / "data" / "dipole_liquid.yaml", lambda d: True),
+    "demo": (ROOT / "studies" / "demo_forearm_capsule.yaml", lambda d: d["frequency_Hz"] > 900e6),
+}
 MESH_KEYS = ("cells_per_wavelength", "port_cells", "max_growth_ratio", "min_cells_per_layer")
 
 
-def uniform_lines(fixed: list[float], h: float) -> np.ndarray:
-    """Lines through every fixed line, each gap split into ``ceil(gap / h)`` equal cells, shape (n,)."""
-    fx = np.asarray(sorted(fixed), float)
-    out = [fx[:1]]
-    for a, b in zip(fx[:-1], fx[1:]):
-        n = max(1, int(math.ceil((b - a) / h - 1e-9)))
-        out.append(np.linspace(a, b, n + 1)[1:])  # linspace ends exactly on the fixed line b
-    return np.concatenate(out)
+def mesh_keys(preset: str, scale: int = 1) -> dict:
+    """The mesh keys of ``preset``, at ``scale`` times its resolution."""
+    from bodysweep.workflow.solver.settings import PRESETS
+
+    p = PRESETS[preset]
+    keys = {k: getattr(p, k) for k in MESH_KEYS}
+    keys["cells_per_wavelength"] *= scale
+    keys["port_cells"] *= scale
+    keys["min_cells_per_layer"] *= scale
+    return keys
 
 
-def densest_wavelength(model) -> tuple[float, str]:
-    """Wavelength (m) in the tissue of largest eps_r at the case frequency, and that tissue's name."""
-    tissues = [m for m in model.materials if m.is_tissue]
-    m = max(tissues, key=lambda t: t.eps_r)
-    return C0 / (model.frequency_Hz * math.sqrt(m.eps_r)), m.name
-
-
-def variant_dir(src_case: dict, root: Path, name: str) -> Path:
-    d = root / name
-    d.mkdir(parents=True)
-    (d / "case.json").write_text(json.dumps(src_case))
-    return d
-
-
-def solve_variant(d: Path) -> dict:
+def solve(case: dict, keep: Path) -> dict:
+    """Solve and finish one case dict in a folder under ``keep`` named by its content; the figures."""
     from bodysweep.workflow import steps
     from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
+    from bodysweep.workflow.study.identity import code_versions
 
+    key = hashlib.sha256(json.dumps([case["scene"], case["solver"], case["frequency_Hz"], code_versions()],
+                                    sort_keys=True).encode()).hexdigest()[:12]
+    d = keep / key
+    done = d / "figures.json"
+    if done.exists():
+        out = json.loads(done.read_text())
+        out.setdefault("energy_balance", json.loads((d / "metrics.json").read_text()).get("energy_balance"))
+        return out
+    d.mkdir(parents=True, exist_ok=True)
+    (d / "case.json").write_text(json.dumps(case))
     steps.build_scene(d)
     t0 = time.perf_counter()
     st = solve_excitation(d, 1, threads=1)
     wall = time.perf_counter() - t0
     if st["status"] != "ok":
-        raise RuntimeError(f"{d.name}: solve failed: {st['reason']}")
+        raise RuntimeError(f"{d}: solve failed: {st['reason']}")
     m = finish_case(d)
-    if m["status"] != "ok":
-        raise RuntimeError(f"{d.name}: finish failed: {m.get('reason')}")
-    s21 = complex(*m["S21"])
-    peak1 = [r for r in m["sar"] if abs(r["mass_kg"] - 0.001) < 1e-9][0]["peak_W_per_kg_per_W"]
-    return {"cells": st["cells"], "timesteps": st["timesteps"], "wall_s": wall,
-            "engine_s": st.get("engine_runtime_s"), "S21_dB": 20 * math.log10(abs(s21)), "sar1g": peak1,
-            "decay": st.get("decay_reached")}
+    if m["status"] == "failed":
+        raise RuntimeError(f"{d}: finish failed: {m.get('reason')}")
+    sar = {round(r["mass_kg"] * 1e3): r["peak_W_per_kg_per_W"] for r in m["sar"]}
+    out = {"cells": st["cells"], "timesteps": st["timesteps"], "wall_s": wall, "sar1": sar[1], "sar10": sar[10],
+           "S21_dB": 20 * math.log10(abs(complex(*m["S21"]))), "S11_dB": 20 * math.log10(abs(complex(*m["S11"]))),
+           "energy_balance": m.get("energy_balance")}
+    done.write_text(json.dumps(out))
+    return out
 
 
-def with_mesh_keys(case: dict, preset: str) -> dict:
-    """The case with the mesh keys of ``preset`` (``"study"``: the case's own settings)."""
-    from bodysweep.workflow.solver.settings import PRESETS
-
-    if preset == "study":
-        return case
-    p = PRESETS[preset]
-    return {**case, "solver": {**case["solver"], **{k: getattr(p, k) for k in MESH_KEYS}}}
-
-
-def run_case(study: Path, pick, work: Path, autos: tuple[str, ...], reference: str) -> None:
-    from bodysweep.geometry.scene import Scene
+def run_case(name: str, keep: Path) -> list[str]:
     from bodysweep.workflow.pipeline import expand_study
-    from bodysweep.workflow.solver.mesh import auto_mesh
-    from bodysweep.workflow.solver.settings import settings_from_dict
 
-    _, _, _, dicts = expand_study(study, work / "unused")
+    study, pick = CASES[name]
+    with tempfile.TemporaryDirectory() as tmp:
+        _, _, _, dicts = expand_study(study, Path(tmp) / "unused")
     case = next(d for d in dicts if pick(d))
-    case["solver"] = {**case["solver"], "max_timesteps": 200_000}
-    model = Scene.from_dict(case["scene"]).build(case["frequency_Hz"])
-    lam, tissue = densest_wavelength(model)
-    h = lam / 20
-    root = work / case["case_id"]
-    root.mkdir()
-    print(f"\n{case['label']} ({study.name}); densest tissue {tissue}, lambda/20 = {h * 1e3:.2f} mm")
-    variants = {}
-    for preset in autos + (reference,):
-        c = with_mesh_keys(case, preset)
-        variants[f"auto {preset}"] = (variant_dir(c, root, f"auto_{preset}"), c)
-    # uniform meshes through the fixed lines of the reference's automatic plan
-    ref_case = variants[f"auto {reference}"][1]
-    ref_plan = auto_mesh(model, settings_from_dict(ref_case["solver"]))
-    finest = min(ref_plan.smallest_cell)
-    uniform = {}
-    for name, size in (("uniform lambda/20", h), (f"uniform {finest * 1e3:.2f} mm", finest)):
-        lines = {a: uniform_lines([p for p, _ in ref_plan.fixed[a]], size) for a in "xyz"}
-        uniform[name] = (lines, int(np.prod([len(v) - 1 for v in lines.values()])))
-    name = "uniform lambda/20"
-    d = variant_dir(case, root, "uniform")
-    (d / "mesh_plan.json").write_text(json.dumps({
-        **{f"lines_{a}": v.tolist() for a, v in uniform[name][0].items()},
-        "interior_bounds": [list(ref_plan.interior_bounds[0]), list(ref_plan.interior_bounds[1])]}))
-    variants[name] = (d, case)
-
+    case["solver"] = {**case["solver"], "max_timesteps": 400_000, "threads": 1}
+    meshes = {"draft": mesh_keys("draft"), "standard": mesh_keys("standard"), "reference": mesh_keys("standard", 2)}
+    print(f"\n{name}: {case['label']} ({study.relative_to(ROOT)})", flush=True)
     res = {}
-    for name, (d, _) in variants.items():
-        res[name] = solve_variant(d)
-        r = res[name]
-        print(f"  solved {name:<20} {r['cells']:>8} cells {r['timesteps']:>7} steps {r['wall_s']:7.1f} s", flush=True)
-    ref = res[f"auto {reference}"]
-    print(f"  {'mesh':<20} {'cells':>8} {'steps':>7} {'solve s':>8} {'|S21| dB':>9} {'d|S21| dB':>10} "
-          f"{'SAR1g W/kg/W':>13} {'dSAR1g %':>9}")
-    for name, r in res.items():
-        ds = r["S21_dB"] - ref["S21_dB"]
-        dsar = 100 * (r["sar1g"] - ref["sar1g"]) / ref["sar1g"]
-        print(f"  {name:<20} {r['cells']:>8} {r['timesteps']:>7} {r['wall_s']:8.1f} {r['S21_dB']:9.3f} {ds:10.3f} "
-              f"{r['sar1g']:13.4g} {dsar:9.2f}")
-    fname = [k for k in uniform if k != "uniform lambda/20"][0]
-    print(f"  {fname:<20} {uniform[fname][1]:>8} (not run: the cell size of the finest automatic cell "
-          f"everywhere, what a uniform mesh needs to resolve the feed as the reference does)")
-    print(f"  reference: auto {reference}; mesh keys of each preset: " + "; ".join(
-        f"{p} " + ", ".join(f"{k} {with_mesh_keys(case, p)['solver'][k]}" for k in MESH_KEYS)
-        for p in autos + (reference,)))
-    for preset in autos:
-        a = res[f"auto {preset}"]
-        ratio_h = uniform["uniform lambda/20"][1] / a["cells"]
-        ratio_f = uniform[fname][1] / a["cells"]
-        ds = abs(a["S21_dB"] - ref["S21_dB"])
-        dsar = abs(100 * (a["sar1g"] - ref["sar1g"]) / ref["sar1g"])
-        print(f"  targets, auto {preset}: uniform lambda/20 / auto cells {ratio_h:.2f} and {fname} / auto "
-              f"{ratio_f:.2f} (>= 5: {'met' if ratio_h >= 5 else 'MISSED'} / {'met' if ratio_f >= 5 else 'MISSED'}); "
-              f"|S21| {ds:.3f} dB from the reference (<= 0.5: {'met' if ds <= 0.5 else 'MISSED'}); "
-              f"peak 1 g SAR {dsar:.2f} % (<= 5: {'met' if dsar <= 5 else 'MISSED'})")
+    for mesh, keys in meshes.items():
+        c = json.loads(json.dumps(case))
+        c["solver"] = {**c["solver"], **keys}
+        res[mesh] = solve(c, keep / name)
+        r = res[mesh]
+        print(f"  solved {mesh:<10} {r['cells']:>9} cells {r['timesteps']:>7} steps {r['wall_s']:7.0f} s", flush=True)
+    ref = res["reference"]
+    rows = []
+    for mesh, r in res.items():
+        d1, d10 = (100 * (r[k] / ref[k] - 1) for k in ("sar1", "sar10"))
+        ds21 = r["S21_dB"] - ref["S21_dB"]
+        row = f"| {name} | {mesh} | {r['cells']:,} | {d1:+.1f} % | {d10:+.1f} % | {ds21:+.2f} dB |"
+        if mesh != "reference":
+            tol = 5.0 if mesh == "standard" else 15.0
+            verdict = [f"SAR {'met' if max(abs(d1), abs(d10)) <= tol else 'MISSED'} (<= {tol:g} %)"]
+            if mesh == "standard":
+                verdict.append(f"|S21| {'met' if abs(ds21) <= 0.5 else 'MISSED'} (<= 0.5 dB)")
+            row += " " + "; ".join(verdict) + " |"
+        else:
+            row += " – |"
+        rows.append(row)
+        print(f"  {mesh:<10} {r['cells']:>9} cells  S11 {r['S11_dB']:7.3f} dB  S21 {r['S21_dB']:8.3f} dB  SAR 1 g "
+              f"{r['sar1']:9.4g}  10 g {r['sar10']:9.4g} W/kg per W  energy balance {r['energy_balance']:.3f}", flush=True)
+    return rows
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--skip-demo", action="store_true", help="only the tiny slab case")
+    ap.add_argument("--cases", default="tiny,liquid,demo", help="comma-separated: " + ", ".join(CASES))
+    ap.add_argument("--keep", type=Path, default=None, help="folder keeping the solves between calls")
     a = ap.parse_args()
+    names = [c.strip() for c in a.cases.split(",") if c.strip()]
+    bad = [c for c in names if c not in CASES]
+    if bad:
+        ap.error(f"unknown case(s) {bad}; known: {sorted(CASES)}")
     print("machine: 2 cores, shared (loaded by other jobs running openEMS); times compare within this run")
     with tempfile.TemporaryDirectory() as tmp:
-        work = Path(tmp)
-        run_case(TINY, lambda d: True, work, ("study", "draft", "standard"), "fine")
-        if not a.skip_demo:
-            run_case(DEMO, lambda d: d["frequency_Hz"] > 900e6, work, ("study",), "standard")
+        keep = a.keep or Path(tmp)
+        rows = []
+        for name in names:
+            rows += run_case(name, keep)
+    print("\n| case | mesh | cells | Δ peak 1 g SAR | Δ peak 10 g SAR | Δ\\|S21\\| | targets |")
+    print("|---|---|---|---|---|---|---|")
+    print("\n".join(rows))
 
 
 if __name__ == "__main__":
