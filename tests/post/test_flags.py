@@ -64,3 +64,19 @@ def test_case_warnings_collects_every_kind_as_one_line_each():
     lines = flags.warning_lines(w)  # metrics.json["warnings"]: plain strings with the code first
     assert [t.split(":")[0] for t in lines] == [x["code"] for x in w] and all(";" not in t and "|" not in t for t in lines)
     assert flags.case_warnings({"S11": [0.1, 0.0], "absorbed_fraction_all": 0.5, "decay_reached": True}, {}) == []
+
+
+def test_thin_wire_flag_only_for_a_dipole_without_cross_section():
+    # A wire of zero radius is a line of cell edges; its effective radius is a fraction of the adjacent cell
+    # (common practice of FDTD thin-wire modelling), so its impedance follows the mesh.
+    thin = {"type": "dipole", "wire_radius_m": 0.0, "strip_width_m": 0.0}
+    round_ = {"type": "dipole", "wire_radius_m": 0.0005, "strip_width_m": 0.0}
+    strip = {"type": "dipole", "wire_radius_m": 0.0, "strip_width_m": 0.002}
+    loop = {"type": "loop", "trace_width_m": 0.002}
+    w = flags.thin_wire_warnings({"external": strip, "implant": thin})
+    assert [x["part"] for x in w] == ["implant"] and "scene.implant.wire_radius_mm" in w[0]["message"]
+    assert flags.thin_wire_warnings({"external": thin, "implant": round_})[0]["part"] == "external"
+    assert flags.thin_wire_warnings({"external": loop, "implant": round_}) == []
+    assert flags.thin_wire_warnings({"external": strip, "implant": None}) == []
+    codes = [x["code"] for x in flags.case_warnings({"S11": [0.1, 0.0], "decay_reached": True}, {"implant": thin})]
+    assert codes == ["thin_wire"]

@@ -17,7 +17,8 @@ No module here imports openEMS or reads solver files; the solver adapter feeds a
 """
 
 # Part of every case identity: bump when a change here alters any result.
-POST_VERSION = "5"  # 5: metrics.json carries the energy balance and the suspect-case warnings (truncated peak cube,
+POST_VERSION = "6"  # 6: a dipole of wire without radius is warned (thin_wire)
+# 5: metrics.json carries the energy balance and the suspect-case warnings (truncated peak cube,
 #                        low accepted power, energy balance, end criterion)
 # 4: the S-parameter band is transformed from the stored port time signals at the finish step
 # 3: cube faces snap to mesh lines within 1 % of the cell width; reported SAR peak is the larger

@@ -20,6 +20,11 @@ Codes
     means the accepted power (or the fields) are wrong by at least that much.
 ``end_criterion``
     An excitation did not reach its energy-decay end criterion.
+``thin_wire``
+    An antenna is a dipole of wire without a radius (``wire_radius_mm: 0`` and no ``strip_width_mm``): a line of
+    metal edges with no cross-section. Its effective radius is a fraction of the mesh cell beside it, so its
+    feed impedance and coupling follow the mesh and have no mesh-independent value (halving the cells at
+    such an implant wire moved \|S21\| by 2.6 dB in ``benchmarks/mesh_economy.py``; README, Mesh economy).
 ``mesh_component``
     The mesh component of the uncertainty budget exceeds a threshold (added by the budget, see
     :mod:`bodysweep.workflow.post.uncertainty`).
@@ -174,6 +179,25 @@ def decay_warning(decay_reached: bool | None) -> list[dict]:
     return []
 
 
+_ROLES = (("external", "external antenna (port 1)"), ("implant", "implant antenna (port 2)"))
+
+
+def thin_wire_warnings(scene: Mapping) -> list[dict]:
+    """``thin_wire`` for each dipole antenna of wire without a radius (see the module's codes)."""
+    out = []
+    for role, name in _ROLES:
+        el = scene.get(role) or {}
+        if el.get("type") != "dipole":
+            continue
+        if float(el.get("wire_radius_m") or 0.0) > 0.0 or float(el.get("strip_width_m") or 0.0) > 0.0:
+            continue
+        out.append({"code": "thin_wire", "part": role,
+                    "message": f"the {name} is a wire without radius (scene.{role}.wire_radius_mm 0): its "
+                               "S-parameters follow the mesh cell beside the wire and have no mesh-independent "
+                               f"value; give scene.{role}.wire_radius_mm or strip_width_mm"})
+    return out
+
+
 def _pair(v) -> complex | None:
     if isinstance(v, (list, tuple)) and len(v) == 2 and all(isinstance(x, (int, float)) for x in v):
         return complex(float(v[0]), float(v[1]))
@@ -187,6 +211,7 @@ def case_warnings(metrics: Mapping, scene: Mapping, grid_bounds_m=None) -> list[
     out += normalisation_warning(s11)
     out += balance_warning(energy_balance(metrics.get("absorbed_fraction_all"), s11, s21))
     out += decay_warning(metrics.get("decay_reached"))
+    out += thin_wire_warnings(scene)
     return out
 
 
