@@ -247,6 +247,19 @@ def overhang_warnings(scene) -> list[str]:
     return out
 
 
+def thin_wire_warnings(scene) -> list[str]:
+    """Dipole antennas of wire without radius: their impedance follows the mesh cell beside the wire."""
+    from .antennas import Dipole
+
+    out = []
+    for role, part in (("external", scene.external), ("implant", scene.implant)):
+        el = getattr(part, "element", None)
+        if isinstance(el, Dipole) and el.wire_radius_m == 0 and el.strip_width_m == 0:
+            out.append(f"the {role} dipole is a wire without radius (scene.{role}.wire_radius_mm 0): its "
+                       "S-parameters will follow the mesh cell beside it; give it wire_radius_mm or strip_width_mm")
+    return out
+
+
 def arrangement_errors(scene, anchors) -> list[str]:
     """Every error of :mod:`this module <bodysweep.geometry.arrangement>` for a scene."""
     return concentrator_contact_errors(scene, anchors) + implant_core_errors(scene)
@@ -254,4 +267,4 @@ def arrangement_errors(scene, anchors) -> list[str]:
 
 def arrangement_warnings(scene) -> list[str]:
     """Every warning of :mod:`this module <bodysweep.geometry.arrangement>` for a scene."""
-    return overhang_warnings(scene) + implant_interface_warnings(scene)
+    return overhang_warnings(scene) + implant_interface_warnings(scene) + thin_wire_warnings(scene)

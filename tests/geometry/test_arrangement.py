@@ -44,7 +44,9 @@ def test_rod_clear_of_the_antenna_passes_and_touching_fails():
         Scene.from_edge_dict(bad)
 
 
-def _check(tmp_path, capsys, monkeypatch, study: dict):
+def _check(tmp_path, capsys, monkeypatch, study: dict, thin_wire: bool = False):
+    if not thin_wire:  # give minimal.yaml's implant wire a radius, so that only the warning under test shows
+        study["scene"]["implant"]["wire_radius_mm"] = 0.3
     p = tmp_path / "s.yaml"
     p.write_text(yaml.safe_dump(study, sort_keys=False))
     monkeypatch.chdir(tmp_path)
@@ -92,3 +94,12 @@ def test_rod_through_the_antenna_is_refused_with_one_line(tmp_path, capsys, monk
     assert rc == 2 and len(err) == 1 and err[0].startswith("bodysweep: error: ")
     assert "concentrator 0 (rod) crosses the external antenna's conductor" in err[0]
     assert list(tmp_path.iterdir()) == []
+
+
+def test_wire_without_radius_is_a_warning(tmp_path, capsys, monkeypatch):
+    # minimal.yaml's implant is a dipole of wire_radius_mm 0: a line of cell edges, whose effective radius is a
+    # fraction of the adjacent cell (common practice of FDTD thin-wire modelling), so it is warned at check
+    study = yaml.safe_load(MINIMAL.read_text())
+    rc, err = _check(tmp_path, capsys, monkeypatch, study, thin_wire=True)
+    assert rc == 0 and len(err) == 1
+    assert err[0].startswith("warning: the implant dipole is a wire without radius (scene.implant.wire_radius_mm 0)")

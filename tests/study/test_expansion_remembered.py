@@ -2,7 +2,7 @@
 ids fixed over code changes that are not meant to change them, and the remembered expansion dropped when
 the study file, its path or a CAD part changes.
 
-The golden ids below were computed with the code of main at commit 7c7290d (before the expansion was
+The golden ids below (GOLDEN_BY_VERSIONS) start from the code of main at commit 7c7290d (before the expansion was
 remembered), from the study in FIXED; a change of them must come with a bumped version constant
 (BUILDER_VERSION, ADAPTER_VERSION or POST_VERSION, DEVELOPERS.md "Identity").
 """
@@ -67,10 +67,34 @@ derived:
   standoff: {path: scene.external.standoff_mm, expr: "max(4, depth / 2)"}
 '''
 
-#: (case id, solve id) of each case of FIXED, in expansion order, computed at main 7c7290d
-GOLDEN = [("4db45a6f9018", "fb7cfc6f904c"), ("f85164246a4d", "f7e594ae9de5"), ("358a64ef8aea", "b8aed7cf8cde"),
-          ("ae1c186b79d7", "ad227938fc73"), ("28b38c5e58e9", "e36d656ce4a5"), ("0decca223fe6", "a2b8f2deb2d0"),
-          ("fcdcff63303e", "e7fa46093952"), ("a0f04652abd0", "a4c01e78aec2")]
+#: (case id, solve id) of each case of FIXED, in expansion order, by the versions that enter the identity
+#: (BUILDER_VERSION, ADAPTER_VERSION, POST_VERSION). ("2", "3", "5") was computed at main 7c7290d; each later
+#: entry was added when a version was bumped, after the code of the time reproduced every earlier entry with its
+#: versions set back (test_earlier_versions_give_their_recorded_ids): only the bump changed the ids.
+GOLDEN_BY_VERSIONS = {
+    ("2", "3", "5"): [("4db45a6f9018", "fb7cfc6f904c"), ("f85164246a4d", "f7e594ae9de5"),
+                      ("358a64ef8aea", "b8aed7cf8cde"), ("ae1c186b79d7", "ad227938fc73"),
+                      ("28b38c5e58e9", "e36d656ce4a5"), ("0decca223fe6", "a2b8f2deb2d0"),
+                      ("fcdcff63303e", "e7fa46093952"), ("a0f04652abd0", "a4c01e78aec2")],
+    ("2", "4", "6"): [("b51e07955ce4", "dc11ef43073e"), ("c2043d50e755", "1054c0055541"),
+                      ("6232c9b31f6f", "937429e1e2c9"), ("cc5b6d3e2404", "b5f407895443"),
+                      ("3f01cafd98ef", "fea21aa30985"), ("6fc168677c84", "d1f32c19a83f"),
+                      ("4112558d2593", "7fb55b1d8db7"), ("f4a5b9122ad5", "34a992d1a0f9")],
+}
+
+
+def _versions():
+    import bodysweep.geometry as g
+    import bodysweep.workflow.post as p
+    import bodysweep.workflow.solver as s
+
+    return (str(g.BUILDER_VERSION), str(s.ADAPTER_VERSION), str(p.POST_VERSION))
+
+
+assert _versions() in GOLDEN_BY_VERSIONS, (
+    f"identity versions {_versions()} have no golden ids: after a deliberate bump, add the new ids of FIXED here "
+    "(and keep the earlier entries, which must still be reproduced with their versions set back)")
+GOLDEN = GOLDEN_BY_VERSIONS[_versions()]
 
 STL = Path(__file__).resolve().parents[2] / "studies" / "external_stl_dipole.yaml"
 
@@ -172,3 +196,17 @@ def test_name_hint_is_only_a_hint(tmp_path):
     assert expansion.name_hint(p) == "a"
     p.write_text("{study: a}\n")
     assert expansion.name_hint(p) is None and remembered(p, tmp_path) is None
+
+
+@pytest.mark.parametrize("versions", sorted(GOLDEN_BY_VERSIONS))
+def test_earlier_versions_give_their_recorded_ids(versions, study, tmp_path, monkeypatch):
+    # with the version constants set back, today's code gives the ids recorded for them: a bump is the only
+    # thing that changed the ids since
+    import bodysweep.geometry as g
+    import bodysweep.workflow.post as p
+    import bodysweep.workflow.solver as s
+
+    for mod, name, v in ((g, "BUILDER_VERSION", versions[0]), (s, "ADAPTER_VERSION", versions[1]),
+                         (p, "POST_VERSION", versions[2])):
+        monkeypatch.setattr(mod, name, v)
+    assert ids(expand_once(study, tmp_path / "results")) == GOLDEN_BY_VERSIONS[versions]
