@@ -120,13 +120,21 @@ def study_settings(study) -> dict:
 
 
 def _cad_files(dicts: list[dict]) -> dict[str, str]:
-    """``{absolute file: sha256}`` of the CAD parts the cases read."""
+    """``{absolute file: sha256}`` of the CAD parts the cases read: every mapping of a scene with a ``file``
+    and its ``sha256`` (antennas, capsules and casings, concentrators)."""
     out: dict[str, str] = {}
+
+    def walk(o):
+        if isinstance(o, dict):
+            if isinstance(o.get("file"), str) and o["file"] and "sha256" in o:
+                out[o["file"]] = str(o["sha256"])
+            for v in o.values():
+                walk(v)
+        elif isinstance(o, list):
+            for v in o:
+                walk(v)
     for d in dicts:
-        for part in ("external", "implant"):
-            p = (d.get("scene") or {}).get(part)
-            if isinstance(p, dict) and p.get("type") == "cad" and p.get("file"):
-                out[str(p["file"])] = str(p.get("sha256", ""))
+        walk(d.get("scene") or {})
     return out
 
 

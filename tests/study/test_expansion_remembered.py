@@ -176,6 +176,22 @@ def test_a_changed_cad_part_expands_again(tmp_path):
     assert remembered(study, results) is None
 
 
+@pytest.mark.parametrize("name", ["capsule_shell_16x6x6mm.stl", "casing_shell_56x8x5mm.stl", "plate_20x2x1mm.stl"])
+def test_a_changed_capsule_casing_or_concentrator_expands_again(tmp_path, name):
+    """Every STL part of a case is watched, not only the antennas (studies/implant_stl_capsule.yaml)."""
+    folder = tmp_path / "s"
+    shutil.copytree(STL.parent, folder, ignore=shutil.ignore_patterns("*.py"))
+    study = folder / "implant_stl_capsule.yaml"
+    results = tmp_path / "results"
+    exp = expand_once(study, results)
+    exp.layout.root.mkdir(parents=True)
+    assert exp.save() and expand_once(study, results).remembered
+    part = folder / "parts" / name
+    assert str(part) in exp.cad_files
+    part.write_bytes(part.read_bytes() + b" ")
+    assert remembered(study, results) is None
+
+
 def test_a_torn_cases_file_is_not_trusted(study, tmp_path):
     results = tmp_path / "results"
     (results / "identity_fixed").mkdir(parents=True)
