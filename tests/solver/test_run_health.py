@@ -39,11 +39,20 @@ def test_pulse_lengths_follow_the_engine_formula():
     dt = 1.81376e-12
     # whole pulse: ceil(2 * 9 / (2 pi fc) / dt) = 3453 for this run (the engine printed 3453)
     assert health.excitation_timesteps(FC, dt) == 3453
-    # envelope exp(-(2 pi fc t / 3 - 3)^2) at the "passed" time equals the end criterion's amplitude
+    # "passed": the energy of the squared envelope exp(-2 ((t - t0) / tau)^2) still to come, a share
+    # erfc(sqrt(2) x) / 2 at x = (t - t0) / tau (Gaussian integral, handbook formula; checked here against
+    # scipy.integrate.quad of the envelope sampled by the formula of the engine), equals the end criterion
+    from scipy.integrate import quad
+
+    tau, t0 = 3 / (2 * math.pi * FC), 9 / (2 * math.pi * FC)
+
+    def share_after(t):
+        f = lambda s: math.exp(-2 * ((s - t0) / tau) ** 2)  # noqa: E731
+        return quad(f, t, t0 + 8 * tau)[0] / quad(f, t0 - 8 * tau, t0 + 8 * tau)[0]
+
     for end_dB in (-30.0, -40.0, -50.0, -60.0):
         n = health.excitation_passed_timesteps(FC, dt, end_dB)
-        env = math.exp(-(2 * math.pi * FC * n * dt / 3 - 3) ** 2)
-        assert env <= 10 ** (end_dB / 20) < math.exp(-(2 * math.pi * FC * (n - 1) * dt / 3 - 3) ** 2)
+        assert share_after(n * dt) <= 10 ** (end_dB / 10) < share_after((n - 1) * dt)
     # below the envelope at the pulse's last sample (exp(-9), -78 dB): the whole pulse, never more
     assert health.excitation_passed_timesteps(FC, dt, -120.0) == 3453
 

@@ -7,6 +7,7 @@ solver-neutral meshing and cost estimate (``mesh``, ``mesh_fill``, ``cost``, ``s
 """
 
 #: bump when a change here alters results (part of every case identity)
-ADAPTER_VERSION = "4"  # 4: round conductors (cylinders, wires with a radius) count their surface nodes
+ADAPTER_VERSION = "4"  # 4: round conductors (cylinders, wires with a radius) count their surface nodes; a run
+#   counts as past its pulse once the energy still to come is below the end criterion (was: the envelope)
 # 3: solves live in the shared store (solve.json), the band is taken at the finish step
 # 2: runs judged on their energy trace and length (diverged / truncated fail); half-domain PML thickness fix

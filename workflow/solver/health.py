@@ -17,7 +17,7 @@ from __future__ import annotations
 import math
 import re
 
-from .cost import gaussian_pulse_length_s, source_decay_s
+from .cost import gaussian_pulse_length_s
 
 __all__ = ["GROWTH_DB", "DIVERGED_LINE", "excitation_timesteps", "excitation_passed_timesteps", "judge_run"]
 
@@ -45,14 +45,35 @@ def excitation_timesteps(fc_Hz: float, timestep_s: float) -> int:
     return int(math.ceil(gaussian_pulse_length_s(fc_Hz) / timestep_s - 1e-9))
 
 
-def excitation_passed_timesteps(fc_Hz: float, timestep_s: float, end_criterion_dB: float) -> int:
-    """Timesteps until the pulse's squared envelope, past its centre, has fallen to the end criterion.
+def _tail_fraction(x: float) -> float:
+    """Energy share of a squared Gaussian envelope ``exp(-2 u^2)`` beyond ``u = x``: ``erfc(sqrt(2) x) / 2``."""
+    return 0.5 * math.erfc(math.sqrt(2.0) * x)
 
-    That is :func:`.cost.source_decay_s` (``t0 + tau sqrt(|dB| ln(10) / 20)``, ``tau = 3 / (2 pi fc)``,
-    analytic for the envelope above); a run that ends earlier has not yet been driven by the part
-    of the pulse above its own end criterion. Never longer than the whole pulse.
+
+def excitation_passed_timesteps(fc_Hz: float, timestep_s: float, end_criterion_dB: float) -> int:
+    """Timesteps until all but the end criterion's share of the pulse's energy has been fed in.
+
+    The pulse's squared envelope is ``exp(-2 ((t - t0) / tau)^2)``, ``t0 = 9 / (2 pi fc)``,
+    ``tau = 3 / (2 pi fc)`` (openEMS' Gaussian excitation, :mod:`.cost`); the share of its energy after
+    ``t0 + x tau`` is ``erfc(sqrt(2) x) / 2`` (Gaussian integral, handbook formula). A run that ends before the
+    share still to come has fallen to the end criterion (the same energy ratio the engine's criterion uses)
+    was cut while the source still drove it. Never longer than the whole pulse.
+
+    (Until ADAPTER_VERSION 4 the instant at which the squared envelope itself fell to the criterion was
+    used; the engine's energy criterion stopped a short dipole's run 1.5 % before that instant, 2.3 dB above
+    the criterion's envelope level, with under -30 dB of the pulse's energy still to come.)
     """
-    t = source_decay_s(fc_Hz, min(float(end_criterion_dB), 0.0))
+    target = 10.0 ** (min(float(end_criterion_dB), 0.0) / 10.0)
+    lo, hi = -3.0, 3.0  # the engine's pulse spans t0 +- 3 tau
+    if _tail_fraction(hi) > target:
+        x = hi
+    else:
+        for _ in range(80):  # bisection: the tail share falls monotonically with x
+            mid = 0.5 * (lo + hi)
+            lo, hi = (mid, hi) if _tail_fraction(mid) > target else (lo, mid)
+        x = hi
+    w = 2.0 * math.pi * fc_Hz
+    t = 9.0 / w + x * 3.0 / w
     return min(excitation_timesteps(fc_Hz, timestep_s), int(math.ceil(t / timestep_s - 1e-9)))
 
 
@@ -90,7 +111,7 @@ def judge_run(info: dict, pulse_fc_Hz: float | None, end_criterion_dB: float | N
             return out
     if steps is not None and n_pass and steps < n_pass:
         out["reason"] = (f"run ended after {steps} timesteps ({steps * dt * 1e9:.3g} ns), before the excitation "
-                         f"pulse had passed: its envelope falls to the end criterion only after {n_pass} timesteps "
+                         f"pulse had passed: the part of its energy still to come falls to the end criterion only after {n_pass} timesteps "
                          f"({n_pass * dt * 1e9:.3g} ns); "
                          + ("raise max_timesteps" if info.get("max_timesteps_reached") else
                             "the energy criterion stopped it: give a lower end_criterion_dB"))
