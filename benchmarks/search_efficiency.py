@@ -9,10 +9,12 @@ grid over the same ranges; each seed runs the search through the same driver as 
 (Optuna journal, rounds of 2, the study's own explore section) with the default optimiser and with
 ``optimiser: random``, and counts the cases until a point is within 0.5 dB of the grid's best.
 
-Part 2 (``--real``), a real small study: the example ``studies/rod_pair_concentrator_search.yaml`` run
-once on that 46-point grid (coarse mesh, ``bodysweep run``, results in ``results/<name>_grid``); then
-the search is restricted to the grid (range steps equal to the grid spacing) and every proposal is looked
-up in the grid's summary table, so many seeds cost no solver time.
+Part 2 (``--real``), a real small study: ``benchmarks/data/rod_pair_small.yaml`` (the example's question
+in a smaller slab on a coarser mesh, about 30 s per case) run once on a 46-point grid (no rods + 5 lengths
+x 3 gaps x 3 heights; ``bodysweep run``, results in ``results/rod_pair_small_grid``); then the search is
+restricted to the grid (range steps equal to the grid spacing) and every proposal is looked up in the
+grid's summary table, so many seeds cost no solver time. The grid may also be run beforehand, e.g. in the
+background: ``--write-grid`` writes the grid study file and prints the command.
 
 Figures: see README, Guided search.
 """
@@ -32,22 +34,25 @@ import yaml
 
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLE = ROOT / "studies" / "rod_pair_concentrator_search.yaml"
+SMALL = ROOT / "benchmarks" / "data" / "rod_pair_small.yaml"
 GRID = {"rod_length": [8, 16, 24, 32, 40], "rod_gap": [3, 10, 17], "rod_height": [6, 12, 18]}
+#: the real small study's grid (its rods sit 4-16 mm above an implant 25 mm deep)
+SMALL_GRID = {"rod_length": [8, 16, 24, 32, 40], "rod_gap": [3, 10, 17], "rod_height": [4, 10, 16]}
 THRESHOLD_DB = 0.5
 
 
-def example() -> dict:
-    return yaml.safe_load(EXAMPLE.read_text())
+def example(path: Path = EXAMPLE) -> dict:
+    return yaml.safe_load(path.read_text())
 
 
-def grid_study_dict() -> dict:
-    """The example as an ordinary grid study: no rods, and rods on the GRID values (46 cases)."""
-    d = example()
+def grid_study_dict(path: Path = SMALL, grid: dict = SMALL_GRID) -> dict:
+    """A search study as an ordinary grid study: no rods, and rods on the grid values (46 cases)."""
+    d = example(path)
     ex = d.pop("explore")
     d["study"] = d["study"] + "_grid"
     params = {n: ({"path": p["path"], "options": p["options"]} if "options" in p else p["path"])
               for n, p in ex["parameters"].items()}
-    d["sweep"] = {"parameters": params, "blocks": [{"grid": {"rods": ["none", "pair"], **GRID}}]}
+    d["sweep"] = {"parameters": params, "blocks": [{"grid": {"rods": ["none", "pair"], **grid}}]}
     return d
 
 

@@ -161,3 +161,12 @@ def test_a_choice_only_search_runs_each_option_once_and_tells_repeats(tmp_path):
     assert drv.run(ev).startswith("budget spent")
     assert sorted(p["rods"] for call in ev.calls for p in call) == ["far", "near", "none"]
     assert drv.best_by_round()[-1] == 2.0
+
+
+def test_baseline_point_is_the_first_proposal_once(tmp_path):
+    spec = _spec(baseline={"rods": "none", "depth": 9})
+    d = SearchDriver(spec, tmp_path / "b", echo=lambda s: None)
+    ev = Analytic()
+    d.run(ev)
+    assert ev.calls[0][0] == {"rods": "none", "depth": 9.0}
+    assert sum(p == {"rods": "none", "depth": 9.0} for call in ev.calls for p in call) == 1

@@ -124,8 +124,12 @@ def search_key(content: dict) -> str:
 class SearchDriver:
     """Rounds of ask -> evaluate -> tell for one search, its state in ``folder``."""
 
-    def __init__(self, spec: SearchSpec, folder: Path, echo: Callable[[str], None] = print):
+    def __init__(self, spec: SearchSpec, folder: Path, echo: Callable[[str], None] = print,
+                 sampler: Callable | None = None, repeats: str = "value"):
+        """``sampler``: ``(spec, round_index) -> Optuna sampler`` in place of :func:`make_sampler` (benchmarks)."""
         self.spec, self.folder, self.echo = spec, Path(folder), echo
+        self.make_sampler = sampler or make_sampler
+        self.repeats = repeats
         self.folder.mkdir(parents=True, exist_ok=True)
         self.rounds_file = self.folder / "rounds.json"
         optuna = _optuna()
@@ -209,9 +213,12 @@ class SearchDriver:
         proposal of this round is told failed as a repeat. At most ``MAX_ASKS_PER_ROUND x batch`` asks."""
         optuna = _optuna()
         r = len(self.rounds())
-        self.study.sampler = make_sampler(self.spec, r)
+        self.study.sampler = self.make_sampler(self.spec, r)
         n = min(self.spec.batch, self.spec.max_points - self.n_run_points())
         known = self._known()
+        if r == 0 and self.spec.baseline and not any(t.state == optuna.trial.TrialState.WAITING
+                                                     for t in self.trials()):
+            self.study.enqueue_trial(dict(self.spec.baseline))  # the reference point is the first proposal
         nums, fresh, asks = [], 0, 0
         while fresh < n and asks < MAX_ASKS_PER_ROUND * n:
             asks += 1
@@ -223,7 +230,10 @@ class SearchDriver:
             same = known.get(point_key(point))
             if same is not None:
                 trial.set_user_attr("repeat_of", same.number)
-                if same.state == optuna.trial.TrialState.COMPLETE:
+                if same.state == optuna.trial.TrialState.COMPLETE and self.repeats == "pruned":
+                    trial.set_user_attr("reason", f"repeat of trial {same.number}")
+                    self.study.tell(trial, state=optuna.trial.TrialState.PRUNED)
+                elif same.state == optuna.trial.TrialState.COMPLETE:
                     trial.set_user_attr("excess", same.user_attrs.get("excess", []))
                     for key, x in (same.constraints or {}).items():
                         trial.set_constraint(key, x)
