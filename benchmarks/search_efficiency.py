@@ -116,7 +116,7 @@ MAIN = ("default", "random")
 def cases_to_reach(variant: str, seed: int, merit, target: float, budget: int, on_grid: bool,
                    study: Path = EXAMPLE, grid: dict = GRID, threshold: float = THRESHOLD_DB) -> int | None:
     """Cases the search runs until a point reaches ``target`` (``None``: not within the budget)."""
-    from bodysweep.workflow.explore.driver import Outcome, SearchDriver
+    from bodysweep.workflow.explore.driver import Outcome, SearchDriver, SearchStopped
 
     optimiser, sampler, repeats = VARIANTS[variant]
     spec = spec_for(optimiser, seed, budget, on_grid, study, grid)
@@ -132,13 +132,18 @@ def cases_to_reach(variant: str, seed: int, merit, target: float, budget: int, o
                 v = merit(p)
                 seen.append(v)
                 out.append(Outcome(v) if v is not None else Outcome(None, reason="not in the grid"))
+            if any(v is not None and v >= target - threshold for v in seen):
+                raise SearchStopped("reached", 0)  # the count is known: the rest of the budget changes nothing
             return out
 
     kw = {"sampler": sampler} if sampler else {}
     if repeats:
         kw["repeats"] = repeats
     with tempfile.TemporaryDirectory() as tmp:
-        SearchDriver(spec, Path(tmp), echo=lambda m: None, **kw).run(Evaluate())
+        try:
+            SearchDriver(spec, Path(tmp), echo=lambda m: None, **kw).run(Evaluate())
+        except SearchStopped:
+            pass
     for i, v in enumerate(seen):
         if v is not None and v >= target - threshold:
             return i + 1
