@@ -7,7 +7,9 @@ sweeps the implant depth.
 
 Rods lie in a plane parallel to the body surface, at ``azimuth_deg`` from the x axis (counter-clockwise
 seen from +z). A rod's cross-section is round (``radius_m`` > 0, any direction), square (``side_m`` > 0,
-only along x or y) or a thin wire on the mesh (both 0).
+only along x or y) or a thin wire on the mesh (both 0). The round rods of a pair (and of crossed pairs) may
+be insulated, as rods in tissue would be: a dielectric sleeve of ``thickness_m`` around each rod, its ends
+included (:class:`Insulation`).
 """
 from __future__ import annotations
 
@@ -18,9 +20,10 @@ from typing import Mapping
 import numpy as np
 
 from .cad import CadConcentrator
-from .primitives import AXES, PRIORITY_CONDUCTOR, Box, Cylinder, Polygon, Primitive, Vec3, Wire
+from .primitives import AXES, PRIORITY_CONDUCTOR, PRIORITY_ENCAPSULATION, Box, Cylinder, Polygon, Primitive, Vec3, Wire
 from .shapes import plane2xyz, xyz2polygon_points
 from .specs import choice, construct, number, positive, vector
+from .tissues import Dielectric
 
 ANCHORS = ("implant", "surface", "external_feed")
 
@@ -80,11 +83,43 @@ def _direction(azimuth_deg: float) -> np.ndarray:
     return d
 
 
-def _pair(name, conductor, centre, direction, rod_length, gap, radius, side) -> list[Primitive]:
-    """Two collinear rods of ``rod_length`` each, separated by ``gap`` centred on ``centre``."""
+@dataclass(frozen=True)
+class Insulation:
+    """A dielectric sleeve around each round rod: ``thickness_m`` of ``eps_r`` (loss ``loss_tangent``) over the
+    rod's surface and beyond both of its ends. Carries no SAR (a plastic, not tissue)."""
+
+    thickness_m: float
+    eps_r: float
+    loss_tangent: float = 0.0
+
+    def __post_init__(self):
+        part = "rod insulation"
+        object.__setattr__(self, "thickness_m", positive(part, "thickness_m", self.thickness_m))
+        object.__setattr__(self, "loss_tangent", positive(part, "loss_tangent", self.loss_tangent, True))
+        if not number(part, "eps_r", self.eps_r) >= 1.0:
+            raise ValueError(f"{part}: eps_r must be >= 1, got {self.eps_r}")
+        object.__setattr__(self, "eps_r", float(self.eps_r))
+
+    def material(self, name: str) -> Dielectric:
+        return Dielectric(f"{name}_insulation", self.eps_r, loss_tangent=self.loss_tangent)
+
+    def to_dict(self) -> dict:
+        return {"thickness_m": self.thickness_m, "eps_r": self.eps_r, "loss_tangent": self.loss_tangent}
+
+
+def _pair(name, conductor, centre, direction, rod_length, gap, radius, side, ins: Insulation | None = None,
+          material_name: str | None = None) -> list[Primitive]:
+    """Two collinear rods of ``rod_length`` each, separated by ``gap`` centred on ``centre``; with ``ins``,
+    each in its sleeve (material named after ``material_name``)."""
     g, L = gap / 2, gap / 2 + rod_length
-    return [rod_primitive(f"{name}_a", conductor, centre - L * direction, centre - g * direction, radius, side),
-            rod_primitive(f"{name}_b", conductor, centre + g * direction, centre + L * direction, radius, side)]
+    ends = [(centre - L * direction, centre - g * direction), (centre + g * direction, centre + L * direction)]
+    out: list[Primitive] = [rod_primitive(f"{name}_{k}", conductor, a, b, radius, side) for k, (a, b) in zip("ab", ends)]
+    if ins is not None:
+        mat = ins.material(material_name or name).name
+        out += [Cylinder(f"{name}_{k}_insulation", mat, tuple((a - ins.thickness_m * direction).tolist()),
+                         tuple((b + ins.thickness_m * direction).tolist()), radius + ins.thickness_m,
+                         priority=PRIORITY_ENCAPSULATION) for k, (a, b) in zip("ab", ends)]
+    return out
 
 
 @dataclass(frozen=True)
@@ -127,6 +162,7 @@ class RodPair(_Section):
     radius_m: float = 0.0
     side_m: float = 0.0
     conductor: str = "pec"
+    insulation: Insulation | None = None
 
     type = "rod_pair"
 
@@ -137,17 +173,34 @@ class RodPair(_Section):
         object.__setattr__(self, "gap_m", positive(part, "gap_m", self.gap_m))
         object.__setattr__(self, "offset_m", vector(part, "offset_m", self.offset_m, 3))
         object.__setattr__(self, "azimuth_deg", number(part, "azimuth_deg", self.azimuth_deg))
+        ins = self.insulation
+        if isinstance(ins, Mapping):
+            ins = construct(Insulation, ins, "rod insulation")
+            object.__setattr__(self, "insulation", ins)
+        if ins is not None:
+            if not self.radius_m > 0:
+                raise ValueError(f"{part}: insulation needs round rods (radius_m > 0), got radius_m = {self.radius_m}")
+            if not self.gap_m > 2 * ins.thickness_m:
+                raise ValueError(f"{part}: gap_m ({self.gap_m:.4g} m) must exceed twice the insulation thickness "
+                                 f"({2 * ins.thickness_m:.4g} m) so that the two sleeves stay apart")
 
     def centre(self, anchors, name: str) -> np.ndarray:
         return _anchor_point(anchors, self.anchor, name) + np.asarray(self.offset_m)
 
+    def materials(self, name: str) -> tuple[Dielectric, ...]:
+        """Materials the concentrator brings (its insulation), named after ``name`` as in :meth:`build`."""
+        return () if self.insulation is None else (self.insulation.material(name),)
+
     def build(self, anchors, name: str) -> list[Primitive]:
         return _pair(name, self.conductor, self.centre(anchors, name), _direction(self.azimuth_deg),
-                     self.rod_length_m, self.gap_m, self.radius_m, self.side_m)
+                     self.rod_length_m, self.gap_m, self.radius_m, self.side_m, self.insulation, name)
 
     def to_dict(self) -> dict:
-        return {**self._base_dict(), "rod_length_m": self.rod_length_m, "gap_m": self.gap_m,
-                "offset_m": list(self.offset_m), "azimuth_deg": self.azimuth_deg}
+        d = {**self._base_dict(), "rod_length_m": self.rod_length_m, "gap_m": self.gap_m,
+             "offset_m": list(self.offset_m), "azimuth_deg": self.azimuth_deg}
+        if self.insulation is not None:  # absent when not insulated: existing scenes keep their identity
+            d["insulation"] = self.insulation.to_dict()
+        return d
 
 
 @dataclass(frozen=True)
@@ -167,7 +220,7 @@ class CrossedPairs(RodPair):
 
     def build(self, anchors, name: str) -> list[Primitive]:
         c = self.centre(anchors, name)
-        args = (self.rod_length_m, self.gap_m, self.radius_m, self.side_m)
+        args = (self.rod_length_m, self.gap_m, self.radius_m, self.side_m, self.insulation, name)
         return (_pair(f"{name}_p1", self.conductor, c, _direction(self.azimuth_deg), *args)
                 + _pair(f"{name}_p2", self.conductor, c, _direction(self.azimuth_deg + self.angle_deg), *args))
 

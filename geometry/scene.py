@@ -185,6 +185,7 @@ class Scene:
             prims += c.build(anchors, f"conc{i}_{c.type}")
             if isinstance(c, CadConcentrator):  # a cad part brings its mesh lines and its inline dielectric
                 hints += c.hints(anchors, f"conc{i}_{c.type}")
+            if hasattr(c, "materials"):  # a cad part's dielectric, a rod pair's insulation
                 inline.update({m.name: m for m in c.materials(f"conc{i}_{c.type}")})
         ports = [ext.port]
         if self.implant is not None:

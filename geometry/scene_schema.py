@@ -243,6 +243,12 @@ SECTION = {
     "side_mm": _len("Square rod side (rods along x or y only); excludes radius_mm", 0.0, zero_ok=True),
 }
 OFFSET = _vec("Offset (x, y, z) from the anchor (mm).", 3, [0.0, 0.0, 0.0])
+INSULATION = _obj("Optional dielectric sleeve around each round rod (radius_mm > 0), its ends included, as rods in "
+                  "tissue would be insulated; absent: bare metal in tissue.", {
+    "thickness_mm": _len("Sleeve thickness over the rod's surface and beyond each end; the gap must exceed twice it"),
+    "eps_r": _num("Relative permittivity of the sleeve.", minimum=1),
+    "loss_tangent": _num("Loss tangent of the sleeve.", 0.0, minimum=0),
+}, ["thickness_mm", "eps_r"])
 AZIMUTH = _num("Rod direction in the plane parallel to the surface, degrees from the x axis.", 0.0)
 
 CONCENTRATORS = {
@@ -254,13 +260,13 @@ CONCENTRATORS = {
     "rod_pair": _obj("Two collinear rods with a gap centred on anchor + offset.", {
         "type": _typed("rod_pair", "Collinear rod pair."), "anchor": ANCHOR, "offset_mm": OFFSET,
         "azimuth_deg": AZIMUTH, "rod_length_mm": _len("Length of each rod"),
-        "gap_mm": _len("Gap between the rods"), **SECTION, "conductor": CONDUCTOR,
+        "gap_mm": _len("Gap between the rods"), **SECTION, "conductor": CONDUCTOR, "insulation": INSULATION,
     }, ["type", "rod_length_mm", "gap_mm"]),
     "crossed_pairs": _obj("Two rod pairs sharing one centre, crossed at an angle.", {
         "type": _typed("crossed_pairs", "Crossed rod pairs."), "anchor": ANCHOR, "offset_mm": OFFSET,
         "azimuth_deg": AZIMUTH, "angle_deg": _num("Angle between the two pairs in degrees.", 90.0),
         "rod_length_mm": _len("Length of each rod"), "gap_mm": _len("Gap between the rods of a pair"),
-        **SECTION, "conductor": CONDUCTOR,
+        **SECTION, "conductor": CONDUCTOR, "insulation": INSULATION,
     }, ["type", "rod_length_mm", "gap_mm"]),
     "rod_array": _obj("Parallel rods (or gapped pairs) side by side, centred on anchor + offset.", {
         "type": _typed("rod_array", "Parallel rod array."), "anchor": ANCHOR, "offset_mm": OFFSET,

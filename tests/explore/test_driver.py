@@ -61,7 +61,7 @@ def test_rounds_spend_the_budget_and_conditional_parameter_follows_its_option(tm
     assert d.n_run_points() == 12
     assert all(sum(not by[n].user_attrs.get("refused") and "repeat_of" not in by[n].user_attrs for n in r) <= 3
                for r in d.rounds())
-    # repeats of a point already run are told its value, never evaluated again
+    # repeats of a point already run are told at once, never evaluated again
     run_points = [json.dumps(p, sort_keys=True) for call in ev.calls for p in call]
     assert len(run_points) == len(set(run_points)) == 12
     for t in d.trials():
@@ -139,7 +139,8 @@ def test_constraints_exclude_points_from_the_best(tmp_path):
     assert best <= -(12 - 9) ** 2 + 3  # analytic: the constrained optimum is at depth 12
 
 
-def test_a_choice_only_search_runs_each_option_once_and_tells_repeats(tmp_path):
+@pytest.mark.parametrize("repeats", ["pruned", "value"])
+def test_a_choice_only_search_runs_each_option_once_and_tells_repeats(tmp_path, repeats):
     d = yaml.safe_load((GOOD / "minimal.yaml").read_text())
     opts = {"none": [], "near": [dict(ROD, offset_mm=[0, 0, 4])], "far": [dict(ROD, offset_mm=[0, 0, 7])]}
     d["explore"] = {"parameters": {"rods": {"path": "scene.concentrators", "options": opts}},
@@ -157,7 +158,24 @@ def test_a_choice_only_search_runs_each_option_once_and_tells_repeats(tmp_path):
             return [Outcome(values[p["rods"]]) for p in points]
 
     ev = Table()
-    drv = SearchDriver(spec, tmp_path / "s", echo=lambda m: None)
+    drv = SearchDriver(spec, tmp_path / "s", echo=lambda m: None, repeats=repeats)
     assert drv.run(ev).startswith("budget spent")
     assert sorted(p["rods"] for call in ev.calls for p in call) == ["far", "near", "none"]
     assert drv.best_by_round()[-1] == 2.0
+    by = {t.number: t for t in drv.trials()}
+    reps = [t for t in drv.trials() if "repeat_of" in t.user_attrs and by[t.user_attrs["repeat_of"]].state.name == "COMPLETE"]
+    assert reps  # 3 options, 3 points: the sampler proposes some again
+    for t in reps:
+        if repeats == "pruned":
+            assert t.state.name == "PRUNED" and t.value is None
+        else:
+            assert t.state.name == "COMPLETE" and t.value == by[t.user_attrs["repeat_of"]].value
+
+
+def test_baseline_point_is_the_first_proposal_once(tmp_path):
+    spec = _spec(baseline={"rods": "none", "depth": 9})
+    d = SearchDriver(spec, tmp_path / "b", echo=lambda s: None)
+    ev = Analytic()
+    d.run(ev)
+    assert ev.calls[0][0] == {"rods": "none", "depth": 9.0}
+    assert sum(p == {"rods": "none", "depth": 9.0} for call in ev.calls for p in call) == 1

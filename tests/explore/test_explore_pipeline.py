@@ -3,10 +3,13 @@
 Checks (common practice for resumable batch work): no case that finished before the kill is run again
 (its files keep their inode and modification time), the resumed search ends with the budget spent, and
 the same seed with the same results gives the same proposals (a replay of the told values through the
-driver in a fresh folder, analytic stand-in for the solver)."""
+driver in a fresh folder, analytic stand-in for the solver). The best point's uncertainty budget is
+recomputed from its component runs' metrics (GUM, JCGM 100:2008: rectangular divisor sqrt 3 §4.3.7,
+root-sum-square §5.1.2, k = 2 §6.2)."""
 from __future__ import annotations
 
 import json
+import math
 import os
 import signal
 import subprocess
@@ -35,6 +38,7 @@ def _study(path: Path) -> Path:
     del d["sweep"]
     d["explore"] = {"parameters": {"depth": {"path": "scene.implant.depth_mm", "range": [5, 10]}},
                     "budget_cases": 4, "batch": 2, "seed": 11, "mesh_check": {"best": 1}}
+    d["uncertainty"] = {"components": ["mesh", "tissue", "power_balance"]}  # the best point's budget
     path.write_text(yaml.safe_dump(d, sort_keys=False))
     return path
 
@@ -86,11 +90,41 @@ def test_explore_two_rounds_killed_and_resumed(tmp_path):
     assert check["cells_per_wavelength"]["check"] == pytest.approx(1.5 * 6)  # tiny.yaml: 6 cells per wavelength
     assert check["points"][0]["check_value"] is not None
 
+    # the best point's uncertainty budget, recomputed from the component runs' own metrics
+    budget = json.loads((folder / "uncertainty.json").read_text())
+    best = budget["points"][0]
+    assert best["value"] == pytest.approx(summary["implant_power_tx_matched_dBm"].max())
+    assert best["quantity"] == "implant_power_tx_matched"  # tiny's figure of merit: implant power, port 1 matched
+    broot = tmp_path / "results" / budget["study"]
+    bsum = pd.read_csv(broot / "tables" / "summary.csv")
+    assert len(bsum) == 1 and bsum["case_id"][0] == best["case_id"]  # only the best point's own case
+    own = json.loads((broot / "cases" / best["case_id"] / "metrics.json").read_text())
+    tx = lambda m: min(m["limits"], key=lambda lim: lim["sar_limited_accepted_W"])["implant_power_W"]["tx_matched"]
+    runs = {r["component"]: r for r in pd.read_csv(broot / "tables" / "uncertainty.csv").to_dict("records")
+            if r["case_id"] == best["case_id"] and r["quantity"] == "implant_power_tx_matched"}
+    u2 = 0.0
+    for comp in ("mesh", "tissue"):
+        run = json.loads((broot / "cases" / runs[comp]["run_case_id"] / "metrics.json").read_text())
+        dev = tx(run) / tx(own) - 1
+        assert runs[comp]["deviation"] == pytest.approx(dev, rel=1e-6)
+        u2 += (dev / 3 ** 0.5) ** 2
+    u2 += runs["power_balance"]["standard_uncertainty"] ** 2
+    U = 2 * u2 ** 0.5
+    assert best["U_budget"] == pytest.approx(U, rel=1e-6)
+    assert best["U"] == pytest.approx(max(10 * math.log10(1 + U), -10 * math.log10(1 - U)), rel=1e-6)
+    lead = budget["leads"][0]
+    second = sorted(summary["implant_power_tx_matched_dBm"])[-2]
+    assert lead["over"] == "the runner-up" and lead["lead"] == pytest.approx(best["value"] - second)
+    assert lead["exceeds"] == (lead["lead"] > best["U"])
+    report = (folder / "report.md").read_text()
+    assert "## Uncertainty budget of the best" in report and "Lead over the runner-up" in report
+
     # same seed, same told values -> same proposals (replay in a fresh folder)
     s = load_study(study)
     spec = parse_search(s.raw, s.parameters, set(), set(), 1, 1)
     told = SearchDriver(spec, folder, echo=lambda m: None)
-    by_point = {json.dumps(t.user_attrs["point"], sort_keys=True): t.value for t in told.trials()}
+    by_point = {json.dumps(t.user_attrs["point"], sort_keys=True): t.value for t in told.trials()
+                if t.state.name == "COMPLETE" and "repeat_of" not in t.user_attrs}
 
     class Replay:
         def refuse(self, p):

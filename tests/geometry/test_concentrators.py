@@ -104,3 +104,38 @@ def test_round_trip(c):
 def test_errors(make, msg):
     with pytest.raises(ValueError, match=msg):
         make()
+
+
+def test_insulated_rod_pair_sleeves_and_material():
+    from bodysweep.geometry.concentrators import Insulation
+
+    ins = Insulation(thickness_m=0.0005, eps_r=2.3, loss_tangent=0.001)
+    c = RodPair(0.008, 0.002, offset_m=(0.0, 0.0, 0.004), radius_m=0.0004, insulation=ins)
+    a, b, sa, sb = c.build(ANCHORS, "c")
+    assert (a.material, sa.material) == ("pec", "c_insulation") and sa.priority < a.priority  # metal wins
+    # hand calculation: sleeve radius 0.4 + 0.5 mm; rod a from x = -8 to 0 mm about the centre x = 1 mm,
+    # its sleeve 0.5 mm beyond each end
+    assert sa.radius == pytest.approx(0.0009)
+    assert sa.start == pytest.approx((0.001 - 0.009 - 0.0005, 0.0, -0.006))
+    assert sa.stop == pytest.approx((0.0 + 0.0005, 0.0, -0.006))
+    assert sb.start == pytest.approx((0.002 - 0.0005, 0.0, -0.006))
+    # sigma = 2 pi f eps0 eps_r tan(delta) (definition of the loss tangent), at 433 MHz
+    m = c.materials("c")[0].to_material(433e6)
+    assert m.sigma_S_per_m == pytest.approx(2 * math.pi * 433e6 * 8.8541878128e-12 * 2.3 * 0.001, rel=1e-9)
+    assert m.eps_r == 2.3 and not m.is_tissue  # a plastic: no SAR
+    assert "insulation" not in RodPair(0.008, 0.002, radius_m=0.0004).to_dict()  # bare rods: dict (identity) as before
+
+
+def test_insulated_rod_pair_round_trip_and_errors():
+    d = {"type": "rod_pair", "rod_length_m": 0.008, "gap_m": 0.002, "radius_m": 0.0004,
+         "insulation": {"thickness_m": 0.0005, "eps_r": 2.3}}
+    c = concentrator_from_dict(d)
+    assert concentrator_from_dict(c.to_dict()) == c and c.insulation.loss_tangent == 0.0
+    with pytest.raises(ValueError, match="insulation needs round rods"):
+        concentrator_from_dict({**d, "radius_m": 0.0, "side_m": 0.0004})
+    with pytest.raises(ValueError, match="must exceed twice the insulation thickness"):
+        concentrator_from_dict({**d, "gap_m": 0.001})
+    with pytest.raises(ValueError, match="eps_r must be >= 1"):
+        concentrator_from_dict({**d, "insulation": {"thickness_m": 0.0005, "eps_r": 0.5}})
+    with pytest.raises(ValueError, match="thickness_m must be > 0"):
+        concentrator_from_dict({**d, "insulation": {"thickness_m": 0.0, "eps_r": 2.3}})

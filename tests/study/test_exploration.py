@@ -99,3 +99,32 @@ def test_bad_sections_name_their_key(change, key):
         load_study(_study(ex))
     assert key in info.value.key_path, str(info.value)
     assert "\n" not in str(info.value)
+
+
+def test_baseline_point_and_uncertainty_best_are_parsed():
+    spec = _spec(_study(dict(EXPLORE, baseline={"rods": "none", "depth": 10}, uncertainty_best=2)))
+    assert spec.baseline == {"rods": "none", "depth": 10.0} and spec.uncertainty_best == 2
+    assert _spec(_study(EXPLORE)).uncertainty_best == 1 and _spec(_study(EXPLORE)).baseline is None  # defaults
+
+
+@pytest.mark.parametrize("baseline, problem", [
+    ({"rods": "none", "depth": 10, "colour": 1}, "not a searched parameter"),
+    ({"rods": "some", "depth": 10}, "not an option"),
+    ({"rods": "none", "depth": 30}, "outside the searched range"),
+    ({"rods": "none", "depth": 10, "rod_len": 8}, "exists only with rods"),
+    ({"rods": "pair", "depth": 10}, "every parameter it has"),  # rod_len missing
+])
+def test_bad_baseline_is_one_line_naming_the_key(baseline, problem):
+    with pytest.raises(StudyError) as info:
+        load_study(_study(dict(EXPLORE, baseline=baseline)))
+    assert "explore.baseline" in info.value.key_path and problem in str(info.value)
+    assert "\n" not in str(info.value)
+
+
+def test_points_study_leaves_the_uncertainty_section_to_the_budget_study():
+    d = _study(EXPLORE, uncertainty={"components": ["mesh", "power_balance"]})
+    spec = _spec(d)
+    raw = points_study(load_study(d).raw, spec, [{"rods": "none", "depth": 10.0}])
+    assert "uncertainty" not in raw  # the rounds run no component runs
+    raw = points_study(load_study(d).raw, spec, [{"rods": "none", "depth": 10.0}], uncertainty={"cases": "all"})
+    assert raw["uncertainty"] == {"cases": "all"}

@@ -50,7 +50,7 @@ def test_unit_keys_name_their_unit():
     dimensionless = {"max_air_fraction", "max_cases", "seed", "count", "decimals",
                      # explore: counts and factors; range/step/at_most/at_least take the unit of their path or column
                      "budget_cases", "batch", "patience_rounds", "best", "density_factor", "range", "step",
-                     "at_most", "at_least"}
+                     "at_most", "at_least", "uncertainty_best"}
     for p, sub in _walk_properties(study_schema()):
         name = p.rsplit(".", 1)[-1]
         types = sub.get("type", [])

@@ -3,9 +3,10 @@
 The search folder is ``results/<study>/explore/<key>/``, ``<key>`` a hash of the whole study file's
 content and the code versions (so an edited study starts a new search and an unchanged one resumes):
 ``journal.log`` (Optuna's journal storage), ``rounds.json``, ``points_study.yaml`` (the ordinary study
-the points are run as), ``mesh_check.json``, ``report.md`` and its pictures. The cases themselves are
+the points are run as), ``mesh_check.json``, ``uncertainty.json`` (the best points' budget and the best's
+leads, :mod:`.budget`), ``report.md`` and its pictures. The cases themselves are
 ordinary cases of the study (``results/<study>/cases/``); the mesh check's are in
-``results/<study>_mesh_check/``.
+``results/<study>_mesh_check/``, the budget's in ``results/<study>_uncertainty/``.
 """
 from __future__ import annotations
 
@@ -125,6 +126,22 @@ def _explore_locked(a, study, spec, folder: Path) -> int:
                              "check_excess": o.excess}
                             for t, o in zip(best, outs)]}
         write_json(folder / "mesh_check.json", check)
-    report = write_search_report(driver, check, folder, study.name)
+    budget = None
+    if spec.uncertainty_best and best:
+        from .budget import leads, run_budget
+
+        ordered = []  # the best points by search value, each once
+        for v, t in ranked:
+            if all(json.dumps(t.user_attrs["point"], sort_keys=True) != json.dumps(o.user_attrs["point"], sort_keys=True)
+                   for o in ordered):
+                ordered.append(t)
+        try:
+            budget = run_budget(study, spec, folder, a.results_dir, run_args(a), a.run_command, ordered)
+        except SearchStopped as exc:
+            print(f"uncertainty budget stopped: {exc}; call `bodysweep explore {a.study}` again to continue")
+            return exc.code
+        budget["leads"] = leads(budget, ranked, spec)
+        write_json(folder / "uncertainty.json", budget)
+    report = write_search_report(driver, check, folder, study.name, budget)
     print(f"search report: {report}")
     return EXIT_OK

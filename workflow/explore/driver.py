@@ -28,9 +28,13 @@ from ..atomic import write_json
 from ..study.exploration import SearchSpec
 
 #: points proposed before the model is used: enough to see every parameter vary, few enough to leave
-#: the budget to the model (measured with benchmarks/search_efficiency.py)
+#: the budget to the model (measured with benchmarks/search_efficiency.py --variants: 4 rather than 8)
 STARTUP_FRACTION = 0.25
-STARTUP_MAX = 8
+STARTUP_MAX = 4
+#: how a proposal equal to a point already run is told: ``"pruned"`` (the sampler counts it among the worse
+#: points and moves on; measured better than ``"value"``, which tells its result again and so weights that
+#: point once more in the sampler's model per repeat)
+REPEATS = "pruned"
 #: a search stops after this many proposals per point of the budget (refused and repeated ones count here)
 MAX_PROPOSALS_PER_POINT = 10
 #: a round asks at most this many times its batch (repeats of points already run are told, not run)
@@ -88,8 +92,12 @@ def make_sampler(spec: SearchSpec, round_index: int):
     seed = round_seed(spec.seed, round_index)
     if spec.optimiser == "random":
         return optuna.samplers.RandomSampler(seed=seed)
-    return optuna.samplers.TPESampler(seed=seed, n_startup_trials=n_startup(spec), multivariate=True, group=True,
-                                      constant_liar=True)
+    return optuna.samplers.TPESampler(seed=seed, **tpe_options(spec))
+
+
+def tpe_options(spec: SearchSpec) -> dict:
+    """The TPE sampler's settings (benchmarks/search_efficiency.py --variants compares others)."""
+    return {"n_startup_trials": n_startup(spec), "multivariate": True, "group": True, "constant_liar": True}
 
 
 def _tidy(v: float) -> float:
@@ -124,8 +132,12 @@ def search_key(content: dict) -> str:
 class SearchDriver:
     """Rounds of ask -> evaluate -> tell for one search, its state in ``folder``."""
 
-    def __init__(self, spec: SearchSpec, folder: Path, echo: Callable[[str], None] = print):
+    def __init__(self, spec: SearchSpec, folder: Path, echo: Callable[[str], None] = print,
+                 sampler: Callable | None = None, repeats: str = REPEATS):
+        """``sampler``: ``(spec, round_index) -> Optuna sampler`` in place of :func:`make_sampler` (benchmarks)."""
         self.spec, self.folder, self.echo = spec, Path(folder), echo
+        self.make_sampler = sampler or make_sampler
+        self.repeats = repeats
         self.folder.mkdir(parents=True, exist_ok=True)
         self.rounds_file = self.folder / "rounds.json"
         optuna = _optuna()
@@ -204,14 +216,18 @@ class SearchDriver:
         return out
 
     def ask_round(self, evaluator: Evaluator) -> list:
-        """Ask up to ``batch`` new points. A proposal equal to a point already run is told that point's
-        result at once (it costs no case and no budget); one equal to a point still running or to a
-        proposal of this round is told failed as a repeat. At most ``MAX_ASKS_PER_ROUND x batch`` asks."""
+        """Ask up to ``batch`` new points. A proposal equal to a point already run is told at once, as
+        pruned (``repeats="pruned"``, the default) or with that point's result (``"value"``); it costs no case
+        and no budget. One equal to a point still running or to a proposal of this round is told failed as a
+        repeat. At most ``MAX_ASKS_PER_ROUND x batch`` asks."""
         optuna = _optuna()
         r = len(self.rounds())
-        self.study.sampler = make_sampler(self.spec, r)
+        self.study.sampler = self.make_sampler(self.spec, r)
         n = min(self.spec.batch, self.spec.max_points - self.n_run_points())
         known = self._known()
+        if r == 0 and self.spec.baseline and not any(t.state == optuna.trial.TrialState.WAITING
+                                                     for t in self.trials()):
+            self.study.enqueue_trial(dict(self.spec.baseline))  # the reference point is the first proposal
         nums, fresh, asks = [], 0, 0
         while fresh < n and asks < MAX_ASKS_PER_ROUND * n:
             asks += 1
@@ -223,7 +239,10 @@ class SearchDriver:
             same = known.get(point_key(point))
             if same is not None:
                 trial.set_user_attr("repeat_of", same.number)
-                if same.state == optuna.trial.TrialState.COMPLETE:
+                if same.state == optuna.trial.TrialState.COMPLETE and self.repeats == "pruned":
+                    trial.set_user_attr("reason", f"repeat of trial {same.number}")
+                    self.study.tell(trial, state=optuna.trial.TrialState.PRUNED)
+                elif same.state == optuna.trial.TrialState.COMPLETE:
                     trial.set_user_attr("excess", same.user_attrs.get("excess", []))
                     for key, x in (same.constraints or {}).items():
                         trial.set_constraint(key, x)

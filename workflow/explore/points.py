@@ -75,7 +75,8 @@ class PipelinePoints:
     """Evaluator of the search driver: points as ordinary cases run by ``bodysweep run``."""
 
     def __init__(self, study, spec: SearchSpec, folder: Path, results_dir: str, run_args: list[str],
-                 name: str | None = None, solver: dict | None = None, run_command=None):
+                 name: str | None = None, solver: dict | None = None, run_command=None,
+                 uncertainty: dict | None = None):
         """``run_command``: the command line's entry point (``argv -> exit code``), handed down by ``cli.main``
         so that this layer above ``run`` does not import the command line."""
         if run_command is None:
@@ -83,11 +84,12 @@ class PipelinePoints:
         self.run_command = run_command
         self.study, self.spec, self.folder = study, spec, Path(folder)
         self.results_dir, self.run_args = results_dir, list(run_args)
-        self.name, self.solver = name, solver
+        self.name, self.solver, self.uncertainty = name, solver, uncertainty
         self._cases: dict[str, list[dict]] = {}
 
     def _raw(self, points: list[dict]) -> dict:
-        return points_study(self.study.raw, self.spec, points, name=self.name, solver=self.solver)
+        return points_study(self.study.raw, self.spec, points, name=self.name, solver=self.solver,
+                            uncertainty=self.uncertainty)
 
     def cases(self, point: dict) -> list[dict]:
         key = repr(sorted(point.items()))

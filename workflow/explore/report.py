@@ -1,4 +1,4 @@
-"""The search report: progress, proposals in parameter space, sensitivity, and the mesh check of the best."""
+"""The search report: progress, proposals in parameter space, sensitivity, the mesh check of the best and\nthe best's uncertainty budget."""
 from __future__ import annotations
 
 import math
@@ -189,7 +189,55 @@ def _fmt(v, spec=".4g") -> str:
     return format(v, spec) if isinstance(v, (int, float)) else str(v)
 
 
-def write_search_report(driver: SearchDriver, check: dict | None, folder: Path, study_name: str) -> Path:
+def budget_lines(budget: dict | None, spec) -> list[str]:
+    """The report's section on the best points' uncertainty budget and the best's leads."""
+    from .budget import lead_sentence
+
+    lines = ["", "## Uncertainty budget of the best", ""]
+    if not budget or not budget.get("points"):
+        lines.append("No uncertainty budget (explore.uncertainty_best is 0, or no feasible point).")
+        return lines
+    cfg = budget["settings"]
+    lines += [f"Component runs ({', '.join(c for c in cfg['components'])}) of the best {len(budget['points'])} "
+              f"point(s), run as study `{budget['study']}` (its `tables/uncertainty` holds every quantity). "
+              "Each component is the change of the quantity when one input of the simulation is changed, taken "
+              "as the half-width of a rectangular distribution; expanded uncertainty U = 2 x root-sum-square "
+              "(GUM, JCGM 100:2008).", ""]
+    first = budget["points"][0]
+    unit_text = " dB" if first.get("how") == "dB" or first.get("unit") == "dB" else ""
+    lines += [f"| trial | point | {spec.merit_column} | budget of | U of {spec.merit_column} (k = 2) | source |",
+              "|---|---|---|---|---|---|"]
+    for b in budget["points"]:
+        point = " ".join(f"{k}={_fmt(v, '.4g')}" for k, v in b["point"].items())
+        what = b["quantity"] or b.get("note", "")
+        lines.append(f"| {b['trial']} | {point} | {_fmt(b['value'])} | {what} | {_fmt(b['U'], '.3g')} | "
+                     f"{b.get('source') or b.get('note', '')} |")
+    if first["components"]:
+        u = first["unit"]
+        lines += ["", f"Components for the best point (case {first['case_id']}, quantity {first['quantity']}, "
+                  f"deviations {'in dB' if u == 'dB' else 'relative'}):", "",
+                  "| component | deviation | standard uncertainty |", "|---|---|---|"]
+        for c in first["components"]:
+            lines.append(f"| {c['component']} | {_fmt(c['deviation'], '+.3g')} | {_fmt(c['standard_uncertainty'], '.3g')} |")
+    lines.append("")
+    for e in budget.get("leads", []):
+        what = e["over"]
+        if e.get("trial") is not None:
+            what += f" (trial {e['trial']}, {_fmt(e['value'])})"
+        if e.get("note"):
+            lines.append(f"- Lead over {what}: {e['note']}.")
+        else:
+            lines.append("- " + lead_sentence(what, e, unit_text))
+    if not budget.get("leads"):
+        lines.append("No other feasible point to compare the best with.")
+    lines += ["", "The lead is compared with the best point's own expanded uncertainty. The uncertainty of a "
+              "difference of two points lies between nearly zero (errors fully shared: same mesh rules, boundary, "
+              "tissue data) and about 1.4 U (independent errors); the mesh check above tests the ranking directly."]
+    return lines
+
+
+def write_search_report(driver: SearchDriver, check: dict | None, folder: Path, study_name: str,
+                        budget: dict | None = None) -> Path:
     spec = driver.spec
     df = trials_frame(driver)
     write_text(folder / "proposals.csv", df.to_csv(index=False))
@@ -238,6 +286,7 @@ def write_search_report(driver: SearchDriver, check: dict | None, folder: Path, 
                   "between these points; refine the mesh before choosing.", "", "![mesh check](mesh_check.png)"]
     else:
         lines.append("No mesh check (no feasible point, or mesh_check.best is 0).")
+    lines += budget_lines(budget, spec)
     lines += ["", "## Proposals", "", "`proposals.csv` lists every proposal (trial, round, state, value, reason, point)."]
     path = folder / "report.md"
     write_text(path, "\n".join(lines) + "\n")

@@ -69,6 +69,10 @@ class SearchSpec:
     mesh_factor: float
     cases_per_point: int
     section: dict = field(repr=False, default_factory=dict)
+    #: the best this many points get an uncertainty budget after the search (0: none)
+    uncertainty_best: int = 1
+    #: a reference point (searched name -> value), proposed first and compared with the best; None: none
+    baseline: dict | None = None
 
     @property
     def max_points(self) -> int:
@@ -251,12 +255,42 @@ def parse_search(raw: dict, sweep_params: dict[str, Parameter], swept: set[str],
         raise StudyError(join_path(SECTION, "budget_cases"), f"smaller than one round ({batch} points x "
                          f"{per_point} cases per point)", budget, f"at least {batch * per_point} cases")
     mesh = sec.get("mesh_check", {})
+    baseline = _baseline(sec.get("baseline"), choices, numeric)
     return SearchSpec(parameters=tuple(choices.values()) + tuple(numeric), merit_column=column,
                       maximise=merit.get("goal", "maximise") == "maximise", constraints=tuple(constraints),
                       budget_cases=budget, batch=batch, seed=int(sec.get("seed", 0)),
                       patience_rounds=sec.get("patience_rounds"), optimiser=sec.get("optimiser", "tree_parzen"),
                       mesh_best=int(mesh.get("best", 3)), mesh_factor=float(mesh.get("density_factor", 1.5)),
-                      cases_per_point=per_point, section=copy.deepcopy(sec))
+                      cases_per_point=per_point, section=copy.deepcopy(sec),
+                      uncertainty_best=int(sec.get("uncertainty_best", 1)), baseline=baseline)
+
+
+def _baseline(base: dict | None, choices: dict[str, SearchParameter], numeric: list[SearchParameter]) -> dict | None:
+    """The checked ``explore.baseline`` point: searched names with a value each choice has / in each range."""
+    if base is None:
+        return None
+    params = {**choices, **{p.name: p for p in numeric}}
+    out = {}
+    for name, v in base.items():
+        where = join_path(SECTION, "baseline", name)
+        if name not in params:
+            raise StudyError(where, "not a searched parameter", name, ", ".join(params))
+        p = params[name]
+        if p.is_choice:
+            if v not in p.options:
+                raise StudyError(where, "not an option of this choice", v, ", ".join(p.options))
+        elif isinstance(v, bool) or not isinstance(v, (int, float)) or not p.low <= float(v) <= p.high:
+            raise StudyError(where, "outside the searched range", v, f"a number in [{p.low:g}, {p.high:g}]")
+        if p.parent is not None and base.get(p.parent) not in p.parent_options:
+            raise StudyError(where, f"exists only with {p.parent} in {list(p.parent_options)}", v,
+                             f"also give {p.parent} one of {list(p.parent_options)}")
+        out[name] = v if p.is_choice else float(v)
+    missing = [p.name for p in params.values() if p.name not in out
+               and (p.parent is None or out.get(p.parent) in p.parent_options)]
+    if missing:
+        raise StudyError(join_path(SECTION, "baseline"), "a baseline point needs a value of every parameter it has",
+                         sorted(out), f"also {', '.join(missing)}")
+    return out
 
 
 def point_row(spec: SearchSpec, point: dict) -> dict:
@@ -269,14 +303,18 @@ def point_row(spec: SearchSpec, point: dict) -> dict:
 
 
 def points_study(raw: dict, spec: SearchSpec, points: list[dict], *, name: str | None = None,
-                 solver: dict | None = None) -> dict:
+                 solver: dict | None = None, uncertainty: dict | None = None) -> dict:
     """An ordinary study (no ``explore`` section) whose cases are the given points.
 
     The searched parameters join ``sweep.parameters``; the points, without repeats, form one more
     ``list`` block. A conditional parameter active in no point is left out of the block.
     ``name``/``solver`` replace the study name and update the solver section (the mesh check).
+    The study's ``uncertainty`` section is left out (the search's rounds run no component runs);
+    ``uncertainty`` puts one in (the budget of the best points after the search).
     """
-    out = copy.deepcopy({k: v for k, v in raw.items() if k != SECTION})
+    out = copy.deepcopy({k: v for k, v in raw.items() if k not in (SECTION, "uncertainty")})
+    if uncertainty is not None:
+        out["uncertainty"] = copy.deepcopy(uncertainty)
     if name is not None:
         out["study"] = name
     if solver:
