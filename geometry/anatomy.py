@@ -13,6 +13,8 @@ the box and does not move the anatomy.
 
 Building merges voxels of equal tissue into boxes (:func:`merge_boxes`: runs along one axis, joined
 across rows, then across slabs) and asks for a mesh line at every voxel face where the tissue changes.
+The boxes do not overlap; on a face two of them share, the tissue listed later in ``labels`` wins (its
+boxes have the higher priority), as a deeper layer of a layered phantom does.
 
 The file's sha256 is part of the spec, so of the case identity; the voxels are not.
 """
@@ -29,7 +31,7 @@ from typing import Mapping
 import numpy as np
 
 from .model import MeshHint, PhantomBuild
-from .primitives import AXES, PRIORITY_TISSUE, VoxelBox
+from .primitives import AXES, PRIORITY_ENCAPSULATION, PRIORITY_TISSUE, VoxelBox
 from .specs import vector
 
 #: name that maps a label to background
@@ -382,7 +384,9 @@ class LabelVolume:
     def voxel_edges(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Face coordinates of the cropped voxels along x, y, z (metres), shapes (nx+1,), (ny+1,), (nz+1,)."""
         ids, c, h = self._layout
-        return tuple(c[i] + h[i] * np.arange(ids.shape[i] + 1) for i in range(3))  # type: ignore[return-value]
+        # rounded to 1e-12 m so that faces meant at whole millimetres are written as such (no 1e-18 m noise)
+        return tuple(np.round(c[i] + h[i] * np.arange(ids.shape[i] + 1), 12) + 0.0
+                     for i in range(3))  # type: ignore[return-value]
 
     def build(self):
         ids, c, h = self._layout
@@ -394,7 +398,7 @@ class LabelVolume:
             start = tuple(float(edges[i][lo[k, i]]) for i in range(3))
             stop = tuple(float(edges[i][hi[k, i]]) for i in range(3))
             prims.append(VoxelBox(f"voxels_{names[v[k]]}_{len(prims)}", names[v[k]], start, stop,
-                                  priority=PRIORITY_TISSUE))
+                                  priority=min(PRIORITY_TISSUE + int(v[k]), PRIORITY_ENCAPSULATION - 1)))
         hints = []
         for i, a in enumerate(AXES):
             for k in change_faces(ids, i):
