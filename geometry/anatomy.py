@@ -282,6 +282,9 @@ class LabelVolume:
             raise ValueError(f"{where}: label {dup[0]} is given twice in labels")
         object.__setattr__(self, "labels", rows)
         object.__setattr__(self, "offset_m", vector(where, "offset_m", self.offset_m, 3))
+        if self.offset_m[2] > 0:
+            raise ValueError(f"{where}: offset_m z {self.offset_m[2] * 1e3:.4g} mm lifts the tissue above z = 0, the "
+                             "body surface the external antenna stands off from; use 0 or less")
         for k in ("crop_from_m", "crop_to_m"):
             if getattr(self, k) is not None:
                 object.__setattr__(self, k, vector(where, k, getattr(self, k), 3))
