@@ -422,6 +422,13 @@ class LabelVolume:
         out[ok] = ids[kk[:, 0], kk[:, 1], kk[:, 2]] != -1
         return out
 
+    def tissue_index(self, points) -> np.ndarray:
+        """Index into :meth:`tissue_names` of the tissue at each point (shape (n, 3)), -1 for air; shape (n,)."""
+        p = np.atleast_2d(np.asarray(points, dtype=float))
+        ids, c, h = self._layout
+        k = np.clip(np.floor((p - c) / h).astype(np.int64), 0, np.asarray(ids.shape) - 1)
+        return np.where(self.contains(p), ids[k[:, 0], k[:, 1], k[:, 2]], -1)
+
     def tissue_at(self, points) -> list[str]:
         """Tissue name (or ``air``) at each point, length n."""
         p = np.atleast_2d(np.asarray(points, dtype=float))

@@ -179,3 +179,20 @@ def test_duplicate_and_malformed_label_rows(tmp_path):
         volume(f, labels=TABLE + [{"label": 1, "tissue": "fat_not_infiltrated"}])
     with pytest.raises(ValueError, match="label must be an integer"):
         volume(f, labels=[{"label": 1.5, "tissue": "skin_wet"}])
+
+
+def test_capsule_straddling_two_tissues_is_warned(tmp_path):
+    """The arrangement check names the two tissues a capsule lies in (hand placement: 2 mm skin over muscle)."""
+    from bodysweep.geometry.arrangement import implant_interface_warnings
+    from bodysweep.geometry.scene import Scene
+    from bodysweep.geometry.units import from_edge_units
+
+    f = write_npy(tmp_path / "slab.npy", slab_labels())
+    scene = {"phantom": {"type": "label_volume", "file": f, "voxel_size_mm": [4, 5, 2], "labels": TABLE},
+             "external": {"type": "dipole", "length_mm": 30, "feed_gap_mm": 2, "axis": "x", "standoff_mm": 6},
+             "implant": {"type": "dipole", "length_mm": 10, "feed_gap_mm": 2, "axis": "x", "depth_mm": 3,
+                         "capsule": {"shape": "box", "size_mm": [13, 4, 4], "eps_r": 2.9, "loss_tangent": 0.005}}}
+    warned = implant_interface_warnings(Scene.from_dict(from_edge_units(scene)))  # capsule from -1 to -5 mm
+    assert len(warned) == 1 and "skin_wet" in warned[0] and "muscle" in warned[0], warned
+    scene["implant"]["depth_mm"] = 8  # from -6 to -10 mm: all muscle
+    assert implant_interface_warnings(Scene.from_dict(from_edge_units(scene))) == []
