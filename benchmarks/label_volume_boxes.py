@@ -6,7 +6,7 @@ A synthetic torso of our own (N^3 voxels of 2 mm, default N = 100): an elliptic 
 skin, fat and muscle, a spine-like bone column, two lung-like ellipsoids of blood-free fat (invented demo
 shapes) and a blood-filled ellipsoid whose cross-section changes along y, so that runs do not simply
 extrude. Prints the voxel count, the number of boxes after the merge (per run axis), the time to build
-the phantom, to mesh the scene, and to build the engine's structure (CSXCAD, no solve).
+the phantom, to mesh the scene, to build the engine's structure (CSXCAD, no solve) and the preview.
 """
 from __future__ import annotations
 
@@ -75,6 +75,11 @@ def main(n: int = 100) -> None:
         t = time.perf_counter()
         _, report = build_csx(model, plan, settings)
         print(f"engine structure (CSXCAD) built in {time.perf_counter() - t:.2f} s, {report.cells} cells")
+        from bodysweep.geometry.preview import preview_png
+
+        t = time.perf_counter()
+        preview_png(model, Path(tmp) / "preview.png")
+        print(f"three-plane preview in {time.perf_counter() - t:.2f} s")
 
 
 if __name__ == "__main__":

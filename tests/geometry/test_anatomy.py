@@ -196,3 +196,29 @@ def test_capsule_straddling_two_tissues_is_warned(tmp_path):
     assert len(warned) == 1 and "skin_wet" in warned[0] and "muscle" in warned[0], warned
     scene["implant"]["depth_mm"] = 8  # from -6 to -10 mm: all muscle
     assert implant_interface_warnings(Scene.from_dict(from_edge_units(scene))) == []
+
+
+def test_material_index_fast_path_for_boxes_matches_the_plain_priority_rule():
+    """material_index tests boxes on a sorted-x window only; the answer must be the per-primitive rule's."""
+    import yaml
+
+    from bodysweep.geometry.raster import inside, material_index
+    from bodysweep.geometry.scene import Scene
+    from bodysweep.geometry.units import from_edge_units
+
+    studies = Path(__file__).resolve().parents[2] / "studies"
+    scene = yaml.safe_load((studies / "segmented_forearm.yaml").read_text())["scene"]
+    scene["phantom"]["file"] = str(studies / scene["phantom"]["file"])
+    model = Scene.from_dict(from_edge_units(scene)).build(403e6)
+    rng = np.random.default_rng(5)
+    pts = rng.uniform([-0.04, -0.05, -0.06], [0.04, 0.05, 0.01], (20000, 3))
+    pts[:2000, 0] = rng.choice([-0.03, -0.012, 0.0, 0.02], 2000)  # points on voxel faces too
+    names = [m.name for m in model.materials]
+    best, ref = np.full(len(pts), -np.inf), np.full(len(pts), -1)
+    for prim in model.primitives:
+        hit = inside(prim, pts, 0.0) & (prim.priority >= best)
+        best[hit] = prim.priority
+        ref[hit] = names.index(prim.material)
+    got = material_index(model, pts)
+    assert np.array_equal(got, ref)
+    assert len(set(got[got >= 0])) >= 4  # skin, fat, muscle, bone (and the antennas' metal) were hit
