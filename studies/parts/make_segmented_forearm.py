@@ -1,6 +1,6 @@
 """Write ``segmented_forearm.npy``: a synthetic segmented forearm of our own, drawn from simple shapes.
 
-An elliptical limb along y (60 mm wide in x, 48 mm high in z, 80 mm long) with skin (1.5 mm), fat
+An elliptical limb along y (60 mm wide in x, 48 mm high in z, 80 mm long) with skin (2.5 mm), fat
 (4 mm), muscle and two bones (cortical shell around marrow-free cores, invented demo dimensions), on a
 2 mm voxel grid. Labels: 0 air, 1 skin, 2 fat, 3 muscle, 4 bone. The array's axes are x, y, z; the
 limb's top (the skin nearest the external antenna) is the highest z.
@@ -16,7 +16,7 @@ import numpy as np
 VOXEL_MM = 2.0
 SHAPE = (36, 40, 30)  # x, y, z voxels: 72 x 80 x 60 mm, the limb with air around it
 HALF_WIDTH_MM, HALF_HEIGHT_MM = 30.0, 24.0
-SKIN_MM, FAT_MM = 1.5, 4.0
+SKIN_MM, FAT_MM = 2.5, 4.0  # skin thicker than a voxel, so that every column crossing it holds some
 BONES = ((-11.0, -6.0, 7.0), (10.0, -8.0, 6.0))  # (x, z relative to the limb's axis, radius), mm
 AIR, SKIN, FAT, MUSCLE, BONE = 0, 1, 2, 3, 4
 
