@@ -119,17 +119,15 @@ def test_moving_the_study_folder_keeps_the_ids(tmp_path):
     assert ids[0] == ids[1]
 
 
-def test_solve_record_keeps_the_path_beside_the_hash(tmp_path):
-    """solve.json is hashed without the path (the id), but keeps it under ``files`` for the scene step."""
-    from bodysweep.workflow.steps import _inputs
-    from bodysweep.workflow.store import solve_record, write_solve_record
-    from bodysweep.workflow.study.identity import content2case_id
+def test_solve_record_keeps_the_path_and_hashes_without_it(tmp_path):
+    """solve.json keeps the volume's path for the scene step; its hash (the solve id) leaves the path out."""
+    from bodysweep.workflow.store import solve_record, verify_solve, write_solve_record
 
     np.save(tmp_path / "body.npy", slab_labels())
     (tmp_path / "s.yaml").write_text(yaml.safe_dump(_study("volume_rec", "body.npy")))
     case = next(c for c in expand(load_study(tmp_path / "s.yaml")) if "volume" in c.label).to_dict()
     rec = solve_record(case)
-    assert rec["files"] == {"phantom": str(tmp_path / "body.npy")} and "file" not in rec["scene"]["phantom"]
-    assert content2case_id({k: v for k, v in rec.items() if k not in ("solve_id", "files")}) == case["solve_id"]
+    assert rec["scene"]["phantom"]["file"] == str(tmp_path / "body.npy") and len(rec["scene"]["phantom"]["sha256"]) == 64
     write_solve_record(tmp_path / "store", case)
-    assert _inputs(tmp_path / "store" / case["solve_id"])["scene"]["phantom"]["file"] == str(tmp_path / "body.npy")
+    problems = verify_solve(tmp_path / "store", case["solve_id"], [1])
+    assert not any("hashes to" in p for p in problems), problems  # the record hashes to its folder name

@@ -32,7 +32,7 @@ TINY = Path(__file__).resolve().parents[1] / "pipeline" / "data" / "tiny.yaml"
 
 
 def _run(case_dir: Path, model, plan, solver: dict, f0: float) -> dict:
-    from bodysweep.workflow.solver.case import finish_case
+    from bodysweep.workflow.finish import finish_case
     from bodysweep.workflow.solver.run import solve_excitation
 
     case_dir.mkdir(parents=True)
