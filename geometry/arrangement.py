@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .anatomy import LabelVolume
 from .phantoms import LayeredCylinder, LayeredSlab, LiquidBox
 from .meshgeom import encloses, mesh_distance, outline_points, surface_points
 from .primitives import Box, Cylinder, Polygon, Polyhedron, Wire, axis_index
@@ -153,8 +154,8 @@ def _surface_points(prim) -> np.ndarray:
 
 
 def layer_of(phantom, points) -> np.ndarray:
-    """Index of the tissue layer holding each point (0 = outermost; the core of a limb = n_layers), -1 outside
-    or for phantoms without layers."""
+    """Index of the tissue layer holding each point (0 = outermost; the core of a limb = n_layers; for a label
+    volume the tissue's place in its table), -1 outside or for phantoms without layers."""
     p = np.atleast_2d(np.asarray(points, dtype=float))
     out = np.full(len(p), -1, dtype=int)
     inside = phantom.contains(p) if hasattr(phantom, "contains") else np.zeros(len(p), bool)
@@ -168,6 +169,8 @@ def layer_of(phantom, points) -> np.ndarray:
         radii = phantom.radii()  # outer radius of each layer, then the core radius (decreasing)
         idx = np.sum(rho[:, None] < radii[None, 1:], axis=1)  # layers passed inward; n_layers = inside the core
         out = np.where(inside, idx, -1)
+    elif isinstance(phantom, LabelVolume):
+        out = phantom.tissue_index(p)
     return out
 
 
@@ -176,6 +179,8 @@ def _layer_names(phantom) -> list[str]:
         return [f"{l.tissue} (layer {i})" for i, l in enumerate(phantom.layers)] + [f"{phantom.core_tissue} (core)"]
     if isinstance(phantom, LayeredSlab):
         return [f"{l.tissue} (layer {i})" for i, l in enumerate(phantom.layers)]
+    if isinstance(phantom, LabelVolume):
+        return phantom.tissue_names()
     return []
 
 

@@ -40,6 +40,25 @@ class ElementBuild:
 
 
 @dataclass(frozen=True)
+class PhantomBuild:
+    """What a phantom turns into.
+
+    Attributes
+    ----------
+    primitives : tuple of Primitive
+    hints : tuple of MeshHint
+    body_bounds : ((x0, y0, z0), (x1, y1, z1))
+    materials : tuple of Dielectric
+        Materials the phantom defines itself (e.g. the liquid box's shell).
+    """
+
+    primitives: tuple[Primitive, ...]
+    hints: tuple[MeshHint, ...]
+    body_bounds: tuple[Vec3, Vec3]
+    materials: tuple = ()
+
+
+@dataclass(frozen=True)
 class SceneModel:
     """Everything a solver needs about the physical arrangement of one case at one frequency.
 

@@ -14,7 +14,7 @@ from typing import Mapping
 
 import numpy as np
 
-from .model import MeshHint
+from .model import MeshHint, PhantomBuild  # noqa: F401  (PhantomBuild is part of this module's interface)
 from .primitives import PRIORITY_TISSUE, Box, Cylinder, Primitive, Vec3, axis_index
 from .specs import choice, construct, positive
 from .tissues import Dielectric
@@ -49,25 +49,6 @@ def _layers(value, part: str) -> tuple[Layer, ...]:
     if not out:
         raise ValueError(f"{part}: needs at least one layer")
     return out
-
-
-@dataclass(frozen=True)
-class PhantomBuild:
-    """What a phantom turns into.
-
-    Attributes
-    ----------
-    primitives : tuple of Primitive
-    hints : tuple of MeshHint
-    body_bounds : ((x0, y0, z0), (x1, y1, z1))
-    materials : tuple of Dielectric
-        Materials the phantom defines itself (e.g. the liquid box's shell).
-    """
-
-    primitives: tuple[Primitive, ...]
-    hints: tuple[MeshHint, ...]
-    body_bounds: tuple[Vec3, Vec3]
-    materials: tuple = ()
 
 
 def _layer_hints(axis: str, lo: float, hi: float, name: str, thickness: float | None = None) -> list[MeshHint]:
@@ -328,8 +309,11 @@ class NoPhantom:
         return construct(cls, d, "phantom none")
 
 
-Phantom = LayeredSlab | LayeredCylinder | LiquidBox | NoPhantom
-PHANTOM_TYPES: dict[str, type] = {c.type: c for c in (LayeredSlab, LayeredCylinder, LiquidBox, NoPhantom)}
+from .anatomy import LabelVolume  # noqa: E402  (it builds a PhantomBuild from this module)
+
+Phantom = LayeredSlab | LayeredCylinder | LiquidBox | NoPhantom | LabelVolume
+PHANTOM_TYPES: dict[str, type] = {c.type: c for c in (LayeredSlab, LayeredCylinder, LiquidBox, NoPhantom,
+                                                      LabelVolume)}
 
 
 def phantom_from_dict(d: Mapping) -> Phantom:

@@ -124,6 +124,17 @@ class Box:
 
 
 @dataclass(frozen=True)
+class VoxelBox(Box):
+    """A box of voxels of one tissue from a segmented label volume.
+
+    A box like any other for the engine; the mesher does not treat its faces as layer faces (the
+    label volume asks for lines where the tissue changes instead, and one voxel thick is not a layer).
+    """
+
+    kind: Literal["voxel_box"] = field(default="voxel_box", init=False)  # type: ignore[assignment]
+
+
+@dataclass(frozen=True)
 class Cylinder:
     """Solid circular cylinder of ``radius`` with axis from ``start`` to ``stop`` (any direction)."""
 
@@ -306,8 +317,8 @@ class Port:
         return tuple(0.5 * (a + b) for a, b in zip(self.start, self.stop))  # type: ignore[return-value]
 
 
-Primitive = Box | Cylinder | Wire | Polygon | Polyhedron
-PRIMITIVE_KINDS = {"box": Box, "cylinder": Cylinder, "wire": Wire, "polygon": Polygon, "polyhedron": Polyhedron}
+Primitive = Box | VoxelBox | Cylinder | Wire | Polygon | Polyhedron
+PRIMITIVE_KINDS = {"box": Box, "voxel_box": VoxelBox, "cylinder": Cylinder, "wire": Wire, "polygon": Polygon, "polyhedron": Polyhedron}
 
 
 def primitive_to_dict(p: Primitive | Port) -> dict:

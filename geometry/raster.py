@@ -126,7 +126,21 @@ def material_index(model: SceneModel, points, tol: float = 0.0) -> np.ndarray:
     names = [m.name for m in model.materials]
     best = np.full(len(p), -np.inf)
     idx = np.full(len(p), -1, dtype=int)
+    order = np.argsort(p[:, 0], kind="stable") if len(p) else np.zeros(0, int)
+    xs = p[order, 0]
+    plo, phi = (p.min(0), p.max(0)) if len(p) else (np.zeros(3), np.zeros(3))
     for prim in model.primitives:
+        if isinstance(prim, Box):  # the same test as inside(), on the points in the box's x window only
+            lo, hi = (np.asarray(v) for v in prim.bounds())
+            if np.any(hi + 1e-15 < plo) or np.any(lo - 1e-15 > phi):
+                continue  # many boxes (a label volume's) miss a preview plane altogether
+            cand = order[np.searchsorted(xs, lo[0] - 1e-15, "left"):np.searchsorted(xs, hi[0] + 1e-15, "right")]
+            q = p[cand]
+            sel = cand[np.all((q >= lo - 1e-15) & (q <= hi + 1e-15), axis=1)]
+            sel = sel[prim.priority >= best[sel]]
+            best[sel] = prim.priority
+            idx[sel] = names.index(prim.material)
+            continue
         hit = inside(prim, p, tol) & (prim.priority >= best)
         best[hit] = prim.priority
         idx[hit] = names.index(prim.material)

@@ -20,7 +20,7 @@ from .antennas import CAPSULE_MATERIAL, CASING_MATERIAL, ExternalAntenna, Implan
 from .cad import CadConcentrator
 from .concentrators import CONCENTRATOR_TYPES, Concentrator, concentrator_from_dict
 from .model import SceneModel
-from .phantoms import SHELL_MATERIAL, LayeredCylinder, LiquidBox, NoPhantom, Phantom, phantom_from_dict
+from .phantoms import SHELL_MATERIAL, LabelVolume, LayeredCylinder, LiquidBox, NoPhantom, Phantom, phantom_from_dict
 from .primitives import Box, Cylinder, Primitive, Vec3
 from .shapes import clearance_to_box, sample_points
 from .specs import positive
@@ -98,6 +98,8 @@ class Scene:
         refs = []
         if isinstance(ph, LiquidBox):
             refs.append(("phantom liquid", ph.liquid))
+        elif isinstance(ph, LabelVolume):
+            refs += [(f"phantom labels (label {r.label})", r.tissue) for r in ph.labels if r.tissue != "air"]
         elif not isinstance(ph, NoPhantom):
             refs += [(f"phantom layer {i}", l.tissue) for i, l in enumerate(ph.layers)]
             if isinstance(ph, LayeredCylinder):

@@ -355,6 +355,26 @@ def scene_schema() -> dict:
         "shell": _obj("Shell on the exposed face.", {"thickness_mm": _len("Shell thickness"), **DIELECTRIC_PROPS},
                       ["thickness_mm", "eps_r"], **NOT_BOTH_LOSSES),
     }, ["type", "liquid", "size_x_mm", "size_y_mm", "depth_mm", "shell"])
+    defs["label_volume"] = _obj("A segmented label volume (NumPy .npy or NIfTI .nii / .nii.gz): each voxel's integer "
+                                "label stands for a tissue. The array's axes are x, y, z as stored; the tissue's "
+                                "bounding box is centred on x = y = 0 with its top face at z = 0, then moved by "
+                                "offset_mm.", {
+        "type": _typed("label_volume", "Label volume."),
+        "file": _str("Path of the .npy, .nii or .nii.gz file, relative to the study file's folder (or absolute)."),
+        "voxel_size_mm": _vec("Voxel size along x, y, z (mm); taken from a NIfTI header when left out "
+                              "(required for .npy).", 3),
+        "labels": {"description": "Label -> tissue (a built-in tissue, a declared material, or air). Label 0 not "
+                                  "listed is air; every other label in the volume must be listed.",
+                   "type": "array", "minItems": 1,
+                   "items": _obj("One label.", {
+                       "label": _num("Integer label in the volume.", minimum=0, integer=True),
+                       "tissue": _str("Material name, or air for background.")}, ["label", "tissue"])},
+        "offset_mm": _vec("Shift (x, y, z) of the volume from its default place (mm).", 3, [0.0, 0.0, 0.0]),
+        "crop_from_mm": _vec("Box of interest, lower corner, in the volume's own frame (mm from the first voxel's "
+                             "corner); voxels whose centre lies in the box are kept.", 3),
+        "crop_to_mm": _vec("Box of interest, upper corner, in the volume's own frame (mm).", 3),
+        "sha256": _str("Content hash of the file; filled in when the study is expanded (give it to pin a version)."),
+    }, ["type", "file", "labels"])
     defs["none"] = _obj("No phantom: the antennas, the implant antenna too, sit in air (checks against "
                         "free-space antenna theory); z = 0 is only the reference plane; no SAR.", {
         "type": _typed("none", "No phantom."),
@@ -396,7 +416,7 @@ def scene_schema() -> dict:
         "properties": {
             "phantom": _dispatch("The tissue phantom; type none leaves every antenna in air (free-space "
                                  "checks).", {k: k for k in ("layered_slab", "layered_cylinder", "liquid_box",
-                                                             "none")}),
+                                                             "label_volume", "none")}),
             "external": _dispatch("The external antenna (port 1).", {"dipole": "external_dipole",
                                                                     "loop": "external_loop",
                                                                     "cad": "external_cad"}),

@@ -30,7 +30,7 @@ def test_sample_scene_validates_and_loads(make):
     assert s.build(433e6).ports
 
 
-DIMENSIONLESS = {"eps_r", "loss_tangent", "turns", "segments_per_turn", "count", "segments", "legs"}
+DIMENSIONLESS = {"eps_r", "loss_tangent", "turns", "segments_per_turn", "count", "segments", "legs", "label"}  # label: an integer in a label volume
 UNIT_SUFFIXES = ("_mm", "_MHz", "_deg", "_ohm", "_S_per_m", "_kg_m3")
 
 

@@ -11,7 +11,9 @@ How the lines come about, per axis
    (lossy tissue inside a PML keeps the energy from decaying, so the run would not end).
 2. **Fixed lines** (each with a priority and a reason): interior bounds, port gap ends, thin wires
    and zero-thickness sheets (openEMS puts 0-thickness metal on mesh lines), conductor edges,
-   fixed-line mesh hints, and the faces of dielectric primitives (layer interfaces).
+   fixed-line mesh hints, and the faces of dielectric primitives (layer interfaces). The boxes of a
+   label volume (:class:`VoxelBox`) bring no lines of their own: the volume's hints put one at every
+   voxel face where the tissue changes.
 3. **Merge.** Fixed lines closer than the merge threshold (``min_cell_m``, or a quarter of the
    finest requested cell) are merged, keeping the more important line.
 4. **Size limits** (upper bounds on the cell size inside an interval): ``lambda / cells_per_wavelength``
@@ -34,7 +36,7 @@ import numpy as np
 
 from bodysweep.geometry.model import SceneModel
 from bodysweep.geometry.meshgeom import face_planes
-from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Polyhedron, Wire
+from bodysweep.geometry.primitives import AXES, Cylinder, Polygon, Polyhedron, VoxelBox, Wire
 
 from .mesh_fill import (_GRADING_SLOPE_FRACTION, _GapEnvelope, _axis_lines, _graded_split,  # noqa: F401
                         _integral, _sample_count, _samples, _short_gap_cells, cells_needed, equidistribute,
@@ -301,8 +303,13 @@ def _requirements(model: SceneModel, settings: SolverSettings, lo: np.ndarray, h
         if b_ >= a_:
             limits[AXES[i]].append((float(a_), float(b_), float(h), why))
 
+    voxel_extent: dict[str, tuple[np.ndarray, np.ndarray]] = {}  # label-volume tissue -> union of its boxes
     for p in model.primitives:
         plo, phi = p.bounds()
+        if isinstance(p, VoxelBox):  # lines come from the volume's hints (tissue changes), limits per tissue below
+            a_, b_ = voxel_extent.get(p.material, (np.asarray(plo), np.asarray(phi)))
+            voxel_extent[p.material] = (np.minimum(a_, plo), np.maximum(b_, phi))
+            continue
         mat = model.material(p.material)
         metal = mat.kind in ("pec", "conductor")
         if metal:
@@ -351,6 +358,10 @@ def _requirements(model: SceneModel, settings: SolverSettings, lo: np.ndarray, h
                               f"{p.name} thickness / min_cells_per_layer")
                 for v in (plo[i], phi[i]):
                     add_line(i, v, P_DIELECTRIC, f"{p.name} face")
+    for name, (vlo, vhi) in voxel_extent.items():
+        h_mat = wavelength_in_material(f, model.material(name).eps_r) / n
+        for i in range(3):
+            add_limit(i, vlo[i], vhi[i], h_mat, f"{name} lambda/N (label volume)")
     for port in model.ports:
         k = AXES.index(port.axis)
         plo, phi = port.bounds()

@@ -17,7 +17,7 @@ from .expressions import evaluate
 from .identity import CASE_ID_LENGTH, _normalise, canonical_json, code_versions
 from .paths import has_path, parent_exists, path2parts, set_path
 from .schema import CaseSceneChecker
-from .study import Study, absolute_cad_files, base_value, cad_part_dicts, declared_solver_key, study_folder
+from .study import Study, absolute_cad_files, base_value, cad_part_dicts, declared_solver_key, label_volume_dicts, study_folder
 
 
 _PLAIN = (str, int, float, bool, type(None))
@@ -127,19 +127,21 @@ def solver_identity(solver: dict) -> dict:
 
 
 def scene_identity(scene: dict) -> dict:
-    """The scene as it enters the case identity: a CAD part (antenna, capsule, casing, concentrator) by its
-    content hash, not by where its file lies.
+    """The scene as it enters the case identity: a CAD part (antenna, capsule, casing, concentrator) or a
+    label-volume phantom by its file's content hash, not by where its file lies.
 
-    Scenes without CAD parts are returned unchanged (the same object).
+    Scenes without such parts are returned unchanged (the same object).
     """
-    if not any(d.get("sha256") for d in cad_part_dicts(scene)):
+    if not any(d.get("sha256") for d in cad_part_dicts(scene) + label_volume_dicts(scene)):
         return scene
 
-    hashed = [id(d) for d in cad_part_dicts(scene) if d.get("sha256")]
+    hashed = [id(d) for d in cad_part_dicts(scene) + label_volume_dicts(scene) if d.get("sha256")]
 
     def strip(d):
         return {n: v for n, v in d.items() if n != "file"} if id(d) in hashed else d
     out = dict(scene)
+    if isinstance(scene.get("phantom"), dict):
+        out["phantom"] = strip(scene["phantom"])
     for k in ("external", "implant"):
         if isinstance(scene.get(k), dict):
             out[k] = {n: strip(v) for n, v in strip(scene[k]).items()}

@@ -358,9 +358,16 @@ def cad_part_dicts(scene) -> list[dict]:
     return out
 
 
+def label_volume_dicts(scene) -> list[dict]:
+    """The phantom mapping of a scene (edge units or SI) when it reads a label-volume file, else nothing."""
+    ph = scene.get("phantom") if isinstance(scene, dict) else None
+    return [ph] if isinstance(ph, dict) and ph.get("type") == "label_volume" else []
+
+
 def absolute_cad_files(scene: dict, folder: Path) -> None:
-    """Make the ``file`` of every CAD part of an edge-unit scene absolute, a relative one read from ``folder``."""
-    for d in cad_part_dicts(scene):
+    """Make the ``file`` of every CAD part and label-volume phantom of an edge-unit scene absolute, a relative
+    one read from ``folder``."""
+    for d in cad_part_dicts(scene) + label_volume_dicts(scene):
         if isinstance(d.get("file"), str) and d["file"]:
             p = Path(d["file"]).expanduser()
             d["file"] = str(p if p.is_absolute() else (folder / p).resolve())
