@@ -24,7 +24,7 @@ Codes
     An antenna is a dipole of wire without a radius (``wire_radius_mm: 0`` and no ``strip_width_mm``): a line of
     metal edges with no cross-section. Its effective radius is a fraction of the mesh cell beside it, so its
     feed impedance and coupling follow the mesh and have no mesh-independent value (halving the cells at
-    such an implant wire moved \|S21\| by 2.6 dB in ``benchmarks/mesh_economy.py``; README, Mesh economy).
+    such an implant wire moved |S21| by 2.6 dB in ``benchmarks/mesh_economy.py``; README, Mesh economy).
 ``mesh_component``
     The mesh component of the uncertainty budget exceeds a threshold (added by the budget, see
     :mod:`bodysweep.workflow.post.uncertainty`).
