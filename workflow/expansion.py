@@ -227,11 +227,10 @@ class Expansion:
         return True
 
     def note_geometry(self, scenes: int, notes: list[str]) -> None:
-        """Record that the geometry check passed: distinct scenes built, arrangement warnings (remembered)."""
+        """Record that the geometry check passed: distinct scenes built, arrangement warnings (remembered by
+        the next :meth:`save`; ``check`` itself writes nothing)."""
         self.geometry = {"scenes": int(scenes), "notes": list(notes)}
-        if self.remembered and self.layout.root.is_dir():
-            self.remembered = False
-            self.save()
+        self.remembered = False  # the files no longer hold all of it
 
 
 def _expand_dicts(study) -> list[dict]:
