@@ -18,41 +18,46 @@ def _fmt(v, spec: str) -> str:
 
 
 def plot_error_bars(summary: pd.DataFrame, path, max_cases: int = 40):
-    """Peak SAR per mass and SAR-limited accepted power of each case with their expanded uncertainty (k = 2) as bars."""
+    """Peak SAR per mass and SAR-limited accepted power of each case with their expanded uncertainty (k = 2) as bars.
+
+    One row per case (its label once, on the left), the two quantities side by side on a shared case axis, so that
+    long labels stay readable however many cases there are.
+    """
     import numpy as np
 
-    from .report_plots import _plt, _save
+    from .report_plots import _labels, _plt, _save
 
     sar_cols = [c for c in summary.columns if c.startswith("peak_SAR_") and c.endswith("_U_rel")]
     ok = summary[summary["status"].isin(["ok", "warning"]) & summary[sar_cols].notna().any(axis=1)] if sar_cols else summary.iloc[:0]
     if ok.empty:
         return None
     ok = ok.head(max_cases)
+    n = len(ok)
     plt = _plt()
-    fig, (a1, a2) = plt.subplots(1, 2, figsize=(max(11, 0.6 * len(ok) + 6), 5), constrained_layout=True)
-    x = np.arange(len(ok))
-    w = 0.8 / len(sar_cols)
+    fig, (a1, a2) = plt.subplots(1, 2, sharey=True, figsize=(12, max(3.0, 0.34 * n + 1.6)), constrained_layout=True)
+    y = np.arange(n)[::-1].astype(float)
+    h = 0.6 / len(sar_cols)
     for k, uc in enumerate(sar_cols):
         mass = uc[len("peak_SAR_"):-len("_U_rel")]
         v = ok[f"peak_SAR_{mass}_W_per_kg_per_W"].to_numpy(float)
-        a1.errorbar(x + (k - (len(sar_cols) - 1) / 2) * w, v, yerr=v * ok[uc].to_numpy(float), fmt="o", capsize=3,
-                    label=f"{mass} average")
+        a1.errorbar(v, y - (k - (len(sar_cols) - 1) / 2) * h, xerr=v * ok[uc].to_numpy(float), fmt="o", capsize=3,
+                    ms=4, label=f"{mass} average")
     p = ok["sar_limited_accepted_dBm"].to_numpy(float)
     lo = p - ok["sar_limited_accepted_dBm_conservative"].to_numpy(float)
     own = (ok["uncertainty_source"] == "own").to_numpy()
     for sel, mfc, text in ((own, "C2", "own budget"), (~own, "white", "study-level budget (no own runs)")):
         if sel.any():
-            a2.errorbar(x[sel], p[sel], yerr=[lo[sel], np.zeros(int(sel.sum()))], fmt="s", capsize=3, color="C2",
-                        mfc=mfc, label=text)
-    labels = ok["label"].astype(str).where(ok["label"].astype(str) != "", ok["case_id"])
+            a2.errorbar(p[sel], y[sel], xerr=[lo[sel], np.zeros(int(sel.sum()))], fmt="s", capsize=3, ms=5,
+                        color="C2", mfc=mfc, label=text)
+    a1.set_yticks(y, _labels(ok), fontsize=7)
+    a1.set_ylim(-0.7, n - 0.3)
     for ax in (a1, a2):
-        ax.set_xticks(x, labels, rotation=70, ha="right", fontsize=7)
-        ax.grid(True, axis="y", alpha=0.3)
-        ax.legend(fontsize=7)
-    a1.set_ylabel("peak averaged SAR (W/kg per W accepted)")
+        ax.grid(True, axis="x", alpha=0.3)
+        ax.legend(fontsize=7, loc="best")
+    a1.set_xlabel("peak averaged SAR (W/kg per W accepted at port 1)")
     a1.set_title("Peak SAR, bars: expanded uncertainty (k = 2)", fontsize=10)
-    a2.set_ylabel("SAR-limited accepted power at port 1 (dBm)")
-    a2.set_title("SAR-limited accepted power, bar: down to its conservative value", fontsize=10)
+    a2.set_xlabel("SAR-limited accepted power at port 1 (dBm)")
+    a2.set_title("SAR-limited accepted power,\nbar: down to its conservative value", fontsize=10)
     return _save(fig, path)
 
 
