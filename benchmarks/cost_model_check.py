@@ -4,7 +4,7 @@
 
 The cases are the tiny pipeline test study (layered slab, external dipole, implant dipole in a capsule,
 915 MHz) with three mesh densities, about 30 000, 100 000 and 260 000 engine cells. Each case is
-expanded through the study layer, estimated with ``workflow.solver.cost.estimate`` on its automatic
+expanded through the study layer, estimated with ``workflow.meshing.cost.estimate`` on its automatic
 mesh (what ``bodysweep plan`` shows) and then solved for port 1 with one engine thread, each in a fresh
 process whose child-process resource usage gives the engine's peak resident memory and CPU time.
 
@@ -105,7 +105,7 @@ def _err(est: float, act: float) -> str:
 
 def main(argv=None) -> int:
     from bodysweep.workflow.estimate import case_estimate
-    from bodysweep.workflow.solver.cost import CALIBRATED_CELLS_PER_S
+    from bodysweep.workflow.meshing.cost import CALIBRATED_CELLS_PER_S
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", nargs="+", default=list(SIZES), choices=list(SIZES))

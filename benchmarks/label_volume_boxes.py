@@ -21,8 +21,8 @@ from bodysweep.geometry.anatomy import merge_boxes
 from bodysweep.geometry.scene import Scene
 from bodysweep.geometry.units import from_edge_units
 from bodysweep.workflow.solver.build import build_csx
-from bodysweep.workflow.solver.mesh import auto_mesh
-from bodysweep.workflow.solver.settings import settings_from_dict
+from bodysweep.workflow.meshing.mesh import auto_mesh
+from bodysweep.workflow.meshing.settings import settings_from_dict
 
 VOXEL_MM = 2.0
 

@@ -48,7 +48,7 @@ MESH_KEYS = ("cells_per_wavelength", "port_cells", "max_growth_ratio", "min_cell
 
 def mesh_keys(preset: str, scale: int = 1) -> dict:
     """The mesh keys of ``preset``, at ``scale`` times its resolution."""
-    from bodysweep.workflow.solver.settings import PRESETS
+    from bodysweep.workflow.meshing.settings import PRESETS
 
     p = PRESETS[preset]
     keys = {k: getattr(p, k) for k in MESH_KEYS}

@@ -109,8 +109,8 @@ def _pmc_run(model, lines, interior, walls, z_factor, sim_dir):
 def part1_pmc(work: Path) -> None:
     from bodysweep.geometry.scene import Scene
     from bodysweep.workflow.solver import engine
-    from bodysweep.workflow.solver.mesh import auto_mesh
-    from bodysweep.workflow.solver.settings import settings_from_dict
+    from bodysweep.workflow.meshing.mesh import auto_mesh
+    from bodysweep.workflow.meshing.settings import settings_from_dict
 
     case = _tiny_case()
     model = Scene.from_dict(case.scene).build(case.frequency_Hz)

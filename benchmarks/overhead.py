@@ -63,8 +63,8 @@ def in_process(case_dir: Path) -> dict[str, float]:
     from bodysweep.geometry.scene import Scene
     from bodysweep.workflow.solver import build, engine
     from bodysweep.workflow.finish import finish_case
-    from bodysweep.workflow.solver.cost import estimate
-    from bodysweep.workflow.solver.mesh import checked_mesh
+    from bodysweep.workflow.meshing.cost import estimate
+    from bodysweep.workflow.meshing.mesh import checked_mesh
     from bodysweep.workflow.solver.run import load_case_inputs
 
     case = CaseFolder(case_dir).read_case_strict()

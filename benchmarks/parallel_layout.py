@@ -102,7 +102,7 @@ def main() -> None:
                     help="mesh keys of the large case: the study's own (~300 k cells) or the standard preset's (~1 M)")
     a = ap.parse_args()
     from bodysweep.workflow.pipeline import expand_study
-    from bodysweep.workflow.solver.settings import PRESETS
+    from bodysweep.workflow.meshing.settings import PRESETS
 
     print("machine: 2 cores, shared (loaded by other jobs running openEMS); compare within this run")
     with tempfile.TemporaryDirectory() as tmp:

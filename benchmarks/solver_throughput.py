@@ -1,5 +1,5 @@
 """Print the single-thread openEMS throughput (MCells/s), timestep and peak memory for a few sizes."""
-from bodysweep.workflow.solver.cost import CALIBRATED_CELLS_PER_S, calibrate
+from bodysweep.workflow.meshing.cost import CALIBRATED_CELLS_PER_S, calibrate
 
 if __name__ == "__main__":
     for r in calibrate():

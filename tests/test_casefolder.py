@@ -155,9 +155,9 @@ def tiny_case() -> dict:
 def test_stored_mesh_is_meshed_once_and_read_back(tmp_path, tiny_case):
     from bodysweep.geometry.scene import Scene
     from bodysweep.workflow.meshrecord import stored_mesh
-    from bodysweep.workflow.solver.cost import estimate
-    from bodysweep.workflow.solver.mesh import checked_mesh
-    from bodysweep.workflow.solver.settings import settings_from_dict
+    from bodysweep.workflow.meshing.cost import estimate
+    from bodysweep.workflow.meshing.mesh import checked_mesh
+    from bodysweep.workflow.meshing.settings import settings_from_dict
 
     folder = cf.SolveFolder(tmp_path)
     folder.record_file.write_text(json.dumps(tiny_case))
@@ -190,7 +190,7 @@ def test_stored_mesh_is_meshed_once_and_read_back(tmp_path, tiny_case):
 
 def test_a_refused_mesh_is_stored_and_refused_again(tmp_path, tiny_case):
     from bodysweep.workflow.meshrecord import stored_mesh
-    from bodysweep.workflow.solver.cost import estimate
+    from bodysweep.workflow.meshing.cost import estimate
 
     folder = cf.SolveFolder(tmp_path)
     folder.record_file.write_text(json.dumps(tiny_case))
@@ -224,7 +224,7 @@ def test_cluster_sizing_and_plan_read_the_stored_mesh(tmp_path, tiny_case):
 
 
 def test_scene_step_stores_the_mesh_and_the_engine_process_reads_it(tmp_path, tiny_case):
-    from bodysweep.workflow.solver.mesh import checked_mesh
+    from bodysweep.workflow.meshing.mesh import checked_mesh
     from bodysweep.workflow.solver.run import load_case_inputs
     from bodysweep.workflow.steps import build_scene
 

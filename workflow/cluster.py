@@ -2,7 +2,7 @@
 
 A solve job on a cluster must ask for enough memory and time, or the scheduler kills it; asking for far
 more makes it wait longer in the queue. The request is derived from the case's cost estimate
-(:class:`~bodysweep.workflow.solver.cost.CostEstimate`: cells, engine memory in bytes, single-thread CPU
+(:class:`~bodysweep.workflow.meshing.cost.CostEstimate`: cells, engine memory in bytes, single-thread CPU
 seconds per excited port) with margins, and grows on each retry, so a job that
 hit its limit is resubmitted larger.
 
@@ -27,7 +27,7 @@ from pathlib import Path
 from typing import Mapping
 
 from .casefolder import SolveFolder
-from .solver.cost import CostEstimate
+from .meshing.cost import CostEstimate
 
 MIB = 2**20
 """Bytes per MiB; SLURM's memory unit "M" is 1024-based (sbatch man page, --mem)."""
@@ -122,7 +122,7 @@ def cost2resources(cost: CostEstimate, threads: int, attempt: int = 1, sizing: J
     ----------
     cost : CostEstimate
         The case's estimate: memory of one excitation, CPU time per excitation
-        (:attr:`~bodysweep.workflow.solver.cost.CostEstimate.cpu_seconds_per_excitation`).
+        (:attr:`~bodysweep.workflow.meshing.cost.CostEstimate.cpu_seconds_per_excitation`).
     threads : int
         Threads the job runs on (>= 1).
     attempt : int
@@ -185,7 +185,7 @@ def resources_for_case(source: str | os.PathLike | Mapping | CostEstimate, attem
     ----------
     source : path, CostEstimate or mapping
         A prepared solve or case folder (its stored mesh's estimate, see :func:`_case_cost_from_folder`),
-        an estimate, or its :meth:`~bodysweep.workflow.solver.cost.CostEstimate.to_dict` form.
+        an estimate, or its :meth:`~bodysweep.workflow.meshing.cost.CostEstimate.to_dict` form.
     attempt : int
         Snakemake's attempt counter (1 on the first submission); each retry asks for more.
     sizing : JobSizing

@@ -22,7 +22,7 @@ from typing import Callable
 
 from .atomic import write_text
 from .layout import StudyLayout
-from .solver.cost import CostEstimate
+from .meshing.cost import CostEstimate
 
 FILE_NAME = StudyLayout(Path(".")).cost_file.name
 #: below this many missing estimates the work is done in this process (a pool costs about half a second)
@@ -36,7 +36,7 @@ def code_signature() -> str:
     import bodysweep.geometry as geometry
 
     h = hashlib.sha256()
-    for mod in ("solver.mesh", "solver.mesh_fill", "solver.cost", "solver.settings", "budget", "estimate"):
+    for mod in ("meshing.mesh", "meshing.mesh_fill", "meshing.cost", "meshing.settings", "budget", "estimate"):
         # the files, found without running them (a warm plan need not import the mesher)
         h.update(Path(find_spec(f"bodysweep.workflow.{mod}").origin).read_bytes())
     h.update(str(geometry.BUILDER_VERSION).encode())

@@ -1,6 +1,6 @@
 """Mesh and cost estimate of one case or one solve (no solver run, no openEMS import).
 
-The one place where a case becomes a :class:`~bodysweep.workflow.solver.cost.CostEstimate`: ``plan`` and
+The one place where a case becomes a :class:`~bodysweep.workflow.meshing.cost.CostEstimate`: ``plan`` and
 ``run`` (budget checks, :mod:`bodysweep.workflow.cost_cache`) call :func:`case_estimate`, which takes a
 solve's stored mesh (``mesh.json``, :mod:`bodysweep.workflow.meshrecord`) when the store has a valid one;
 the cluster job sizing (:mod:`bodysweep.workflow.cluster`) and the scene step call :func:`solve_estimate`,
@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import replace
 from pathlib import Path
 
-from .solver.cost import CostEstimate
+from .meshing.cost import CostEstimate
 
 
 def _with_disk(case: dict, est: CostEstimate) -> CostEstimate:
@@ -39,7 +39,7 @@ def case_estimate(case: dict, store: str | Path | None = None) -> CostEstimate:
     from bodysweep.geometry.scene import Scene
 
     from .solver.backend import get_backend
-    from .solver.settings import settings_from_dict
+    from .meshing.settings import settings_from_dict
 
     backend = get_backend()
     model = Scene.from_dict(case["scene"]).build(float(case["frequency_Hz"]))

@@ -44,7 +44,7 @@ FORMAT = 1
 
 #: folders (package, sub-folder) and single modules whose source decides an expansion
 _CODE_TREES = (("bodysweep.geometry", ""), ("bodysweep.workflow", "study"), ("bodysweep.workflow", "schema"))
-_CODE_FILES = (("bodysweep.workflow", "expansion.py"), ("bodysweep.workflow", "solver/settings.py"),
+_CODE_FILES = (("bodysweep.workflow", "expansion.py"), ("bodysweep.workflow", "meshing/settings.py"),
                ("bodysweep.workflow", "solver/__init__.py"), ("bodysweep.workflow", "post/__init__.py"),
                ("bodysweep.workflow", "layout.py"))
 

@@ -261,7 +261,7 @@ def finish_case(case_dir, solve_dir=None) -> dict:
     """
     from .post.sar_average import average_sar
     from .post.sar_flush import flush_cube_peak, reported_peak
-    from .solver.settings import settings_from_dict
+    from .meshing.settings import settings_from_dict
 
     folder = CaseFolder(case_dir)
     solve = SolveFolder(solve_dir if solve_dir is not None else folder.dir)

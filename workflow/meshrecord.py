@@ -25,8 +25,8 @@ from pathlib import Path
 from typing import Callable
 
 from .casefolder import SolveFolder
-from .solver.cost import CostEstimate
-from .solver.mesh import MeshPlan
+from .meshing.cost import CostEstimate
+from .meshing.mesh import MeshPlan
 
 #: the solver settings that do not change the mesh or its estimate (run-only, finish-only)
 _NOT_MESH = ("threads", "n_band_points")
@@ -46,7 +46,7 @@ def mesh_code() -> str:
     """Hash of the source files whose change alters a mesh or its estimate, and of the builders' version."""
     import bodysweep.geometry as geometry
 
-    from .solver import cost, mesh, mesh_fill, settings
+    from .meshing import cost, mesh, mesh_fill, settings
 
     h = hashlib.sha256()
     for mod in (mesh, mesh_fill, cost, settings):
@@ -110,7 +110,7 @@ def stored_mesh(folder: SolveFolder | str | Path, mesh_fn: Callable, estimate_fn
     got = read_stored(folder, inputs)
     if got is not None:
         return got
-    from .solver.settings import settings_from_dict
+    from .meshing.settings import settings_from_dict
 
     head = {"source": mesh_source(inputs), "code": mesh_code()}
     model = model if model is not None else _model(folder, inputs)

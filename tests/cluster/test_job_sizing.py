@@ -6,7 +6,7 @@ import math
 import pytest
 
 from bodysweep.workflow.cluster import MIB, JobSizing, cells2threads, cost2resources, resources_for_case
-from bodysweep.workflow.solver.cost import CostEstimate
+from bodysweep.workflow.meshing.cost import CostEstimate
 
 
 def test_mib_is_1024_based():

@@ -20,7 +20,7 @@ import yaml
 pytestmark = [pytest.mark.slurm, pytest.mark.timeout(1500)]
 
 # the cost estimate the solve rule sizes its jobs with (the mesh developer's module)
-pytest.importorskip("bodysweep.workflow.solver.cost", reason="the case cost estimate (workflow/solver/cost.py) is not in the tree yet")
+pytest.importorskip("bodysweep.workflow.meshing.cost", reason="the case cost estimate (workflow/meshing/cost.py) is not in the tree yet")
 
 from bodysweep.workflow.cluster import resources_for_case  # noqa: E402
 from bodysweep.workflow.pipeline import PROFILES_DIR  # noqa: E402

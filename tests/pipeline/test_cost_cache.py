@@ -7,7 +7,7 @@ import yaml
 
 from bodysweep.workflow import cost_cache
 from bodysweep.workflow.estimate import case_estimate
-from bodysweep.workflow.solver.cost import CostEstimate
+from bodysweep.workflow.meshing.cost import CostEstimate
 from bodysweep.workflow.study import expand, load_study
 
 from pathlib import Path

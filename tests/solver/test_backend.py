@@ -10,9 +10,9 @@ import sys
 import pytest
 
 from bodysweep.workflow.solver.backend import BACKENDS, OpenEMSBackend, SolverBackend, get_backend
-from bodysweep.workflow.solver.cost import CostEstimate, estimate
-from bodysweep.workflow.solver.mesh import MeshPlan, auto_mesh
-from bodysweep.workflow.solver.settings import SolverSettings
+from bodysweep.workflow.meshing.cost import CostEstimate, estimate
+from bodysweep.workflow.meshing.mesh import MeshPlan, auto_mesh
+from bodysweep.workflow.meshing.settings import SolverSettings
 from test_mesh import muscle_block
 
 METHODS = ("mesh", "estimate", "solve_excitation")
@@ -60,7 +60,7 @@ def test_openems_backend_meshes_and_estimates_as_its_modules():
 
 def test_importing_the_interface_loads_no_engine_and_no_mesher():
     code = ("import sys, bodysweep.workflow.solver.backend\n"
-            "bad = [m for m in ('openEMS', 'CSXCAD', 'bodysweep.workflow.solver.mesh', 'bodysweep.workflow.solver.run')"
+            "bad = [m for m in ('openEMS', 'CSXCAD', 'bodysweep.workflow.meshing.mesh', 'bodysweep.workflow.solver.run')"
             " if m in sys.modules]\nprint(bad)\n")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"

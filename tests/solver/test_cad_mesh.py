@@ -12,8 +12,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "geometry"))
 from test_cad import strip_dipole_mm, write_stl  # noqa: E402
 
 from bodysweep.geometry.scene import Scene  # noqa: E402
-from bodysweep.workflow.solver.mesh import MeshRefused, auto_mesh, check_mesh  # noqa: E402
-from bodysweep.workflow.solver.settings import settings_from_dict  # noqa: E402
+from bodysweep.workflow.meshing.mesh import MeshRefused, auto_mesh, check_mesh  # noqa: E402
+from bodysweep.workflow.meshing.settings import settings_from_dict  # noqa: E402
 
 
 def _model(tmp_path, thick_mm):

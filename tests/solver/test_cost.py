@@ -10,12 +10,12 @@ from scipy.constants import c as C0_SCIPY
 from scipy.optimize import brentq
 from scipy.signal import hilbert
 
-from bodysweep.workflow.solver.cost import (
+from bodysweep.workflow.meshing.cost import (
     CALIBRATED_CELLS_PER_S, ENERGY_CHECK_INTERVAL_S, courant_timestep, estimate, gaussian_pulse_length_s,
     memory_estimate, source_decay_s, stop_timestep,
 )
-from bodysweep.workflow.solver.mesh import auto_mesh
-from bodysweep.workflow.solver.settings import SolverSettings
+from bodysweep.workflow.meshing.mesh import auto_mesh
+from bodysweep.workflow.meshing.settings import SolverSettings
 from test_mesh import muscle_block
 
 

@@ -8,9 +8,9 @@ from scipy.constants import c as C0_SCIPY
 
 from bodysweep.geometry.model import MeshHint, SceneModel
 from bodysweep.geometry.primitives import Box, Cylinder, Material, Polygon, Port, Wire
-from bodysweep.workflow.solver.mesh import (BODY_REACH_WAVELENGTHS, MeshPlan, MeshRefused, auto_mesh,
+from bodysweep.workflow.meshing.mesh import (BODY_REACH_WAVELENGTHS, MeshPlan, MeshRefused, auto_mesh,
                                             check_mesh, merge_fixed_lines)
-from bodysweep.workflow.solver.settings import PRESETS, SolverSettings
+from bodysweep.workflow.meshing.settings import PRESETS, SolverSettings
 
 MUSCLE = Material("muscle", eps_r=57.0, sigma_S_per_m=0.8, density_kg_m3=1090.0, is_tissue=True)
 FAT = Material("fat", eps_r=5.6, sigma_S_per_m=0.04, density_kg_m3=911.0, is_tissue=True)

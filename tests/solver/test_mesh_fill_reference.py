@@ -10,8 +10,8 @@ import dataclasses
 import numpy as np
 import pytest
 
-from bodysweep.workflow.solver import mesh
-from bodysweep.workflow.solver.settings import PRESETS
+from bodysweep.workflow.meshing import mesh
+from bodysweep.workflow.meshing.settings import PRESETS
 
 from test_mesh import layered_with_dipole  # noqa: E402  (rootdir-relative test module, as solver_scenes)
 

@@ -17,8 +17,8 @@ import pytest
 
 from bodysweep.geometry.scene import Scene
 from bodysweep.workflow.solver import mirror
-from bodysweep.workflow.solver.mesh import auto_mesh
-from bodysweep.workflow.solver.settings import settings_from_dict
+from bodysweep.workflow.meshing.mesh import auto_mesh
+from bodysweep.workflow.meshing.settings import settings_from_dict
 from bodysweep.workflow.study import expand, load_study
 
 TINY = Path(__file__).resolve().parents[1] / "pipeline" / "data" / "tiny.yaml"

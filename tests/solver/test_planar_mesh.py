@@ -9,8 +9,8 @@ import pytest
 
 from bodysweep.geometry.primitives import Polygon
 from bodysweep.geometry.scene import Scene
-from bodysweep.workflow.solver.mesh import auto_mesh
-from bodysweep.workflow.solver.settings import settings_from_dict
+from bodysweep.workflow.meshing.mesh import auto_mesh
+from bodysweep.workflow.meshing.settings import settings_from_dict
 
 import sys, pathlib  # noqa: E401
 sys.path.insert(0, str(pathlib.Path(__file__).parents[1] / "geometry"))

@@ -13,8 +13,8 @@ import pytest
 
 from bodysweep.geometry.scene import Scene
 from bodysweep.geometry.units import from_edge_units
-from bodysweep.workflow.solver.mesh import auto_mesh, check_mesh
-from bodysweep.workflow.solver.settings import settings_from_dict
+from bodysweep.workflow.meshing.mesh import auto_mesh, check_mesh
+from bodysweep.workflow.meshing.settings import settings_from_dict
 
 F0 = 2.45e9
 SCENE = {"phantom": {"type": "none"},

@@ -6,7 +6,7 @@ import jsonschema
 import pytest
 
 from bodysweep.geometry.units import from_edge_units
-from bodysweep.workflow.solver.settings import (PRESETS, SETTING_KEYS, SolverSettings, preset,
+from bodysweep.workflow.meshing.settings import (PRESETS, SETTING_KEYS, SolverSettings, preset,
                                                 settings_from_dict)
 
 

@@ -195,7 +195,7 @@ def test_case_dict_has_the_case_folder_contract_keys():
     # default SAR limits are the schema defaults; 1 g = 1e-3 kg (SI prefix)
     assert c["sar"]["masses_kg"] == [1e-3, 1e-2]
     assert [lim["mass_kg"] for lim in c["sar"]["limits"]] == [1e-3, 1e-2]
-    from bodysweep.workflow.solver.settings import settings_from_dict
+    from bodysweep.workflow.meshing.settings import settings_from_dict
     assert settings_from_dict(c["solver"]).to_dict() == c["solver"]
 
 

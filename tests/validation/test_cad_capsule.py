@@ -25,8 +25,8 @@ from test_cad import box_triangles, write_stl  # noqa: E402
 from bodysweep.geometry.primitives import Box, Polyhedron  # noqa: E402
 from bodysweep.geometry.scene import Scene  # noqa: E402
 from bodysweep.geometry.units import from_edge_units  # noqa: E402
-from bodysweep.workflow.solver.mesh import auto_mesh, check_mesh  # noqa: E402
-from bodysweep.workflow.solver.settings import settings_from_dict  # noqa: E402
+from bodysweep.workflow.meshing.mesh import auto_mesh, check_mesh  # noqa: E402
+from bodysweep.workflow.meshing.settings import settings_from_dict  # noqa: E402
 
 pytestmark = [pytest.mark.solver, pytest.mark.validation]
 

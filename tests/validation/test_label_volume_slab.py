@@ -23,8 +23,8 @@ import yaml
 from bodysweep.geometry.primitives import VoxelBox
 from bodysweep.geometry.scene import Scene
 from bodysweep.geometry.units import from_edge_units
-from bodysweep.workflow.solver.mesh import auto_mesh, check_mesh
-from bodysweep.workflow.solver.settings import settings_from_dict
+from bodysweep.workflow.meshing.mesh import auto_mesh, check_mesh
+from bodysweep.workflow.meshing.settings import settings_from_dict
 
 pytestmark = [pytest.mark.solver, pytest.mark.validation]
 

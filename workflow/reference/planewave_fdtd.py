@@ -203,7 +203,7 @@ TIMESTEP_FRACTION = 0.99
 
 def timestep_s(setup: PlaneWaveSetup) -> float:
     """The forced timestep of both runs (s): :data:`TIMESTEP_FRACTION` of the vacuum Courant limit."""
-    from ..solver.cost import courant_timestep
+    from ..meshing.cost import courant_timestep
 
     m = plane_wave_mesh(setup)
     return TIMESTEP_FRACTION * courant_timestep(*(float(np.diff(m[f"lines_{a}"]).min()) for a in "xyz"))
@@ -211,7 +211,7 @@ def timestep_s(setup: PlaneWaveSetup) -> float:
 
 def run_timesteps(setup: PlaneWaveSetup) -> int:
     """Timesteps of a run: pulse plus ring-down (module notes) at :func:`timestep_s`."""
-    from ..solver.cost import gaussian_pulse_length_s
+    from ..meshing.cost import gaussian_pulse_length_s
 
     m = plane_wave_mesh(setup)
     dt = timestep_s(setup)

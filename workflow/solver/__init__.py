@@ -1,8 +1,8 @@
 """Solver adapter: the only part of bodysweep that imports openEMS (in :mod:`.engine`).
 
 Modules: ``engine`` (engine access, log parsing), ``build`` (scene + mesh -> CSXCAD structure),
-``ports`` (own lumped ports and probe reading), ``run`` (one excitation in a child process), and the
-solver-neutral meshing and cost estimate (``mesh``, ``mesh_fill``, ``cost``, ``settings``). Finishing a case
+``ports`` (own lumped ports and probe reading), ``run`` (one excitation in a child process).
+The solver-neutral meshing, settings and cost estimate live in :mod:`bodysweep.workflow.meshing`. Finishing a case
 (S-matrix, SAR, link budget) reads only the case folder and lives in :mod:`bodysweep.workflow.finish`.
 """
 

@@ -4,11 +4,11 @@ A backend does three things for one case:
 
 ``mesh(model, settings) -> MeshPlan``
     The mesh lines of the built scene (:class:`~bodysweep.geometry.model.SceneModel`) under the solver
-    settings (:class:`~bodysweep.workflow.solver.settings.SolverSettings`); raises ``ValueError`` (e.g.
-    :class:`~bodysweep.workflow.solver.mesh.MeshRefused`) for a scene it cannot mesh.
+    settings (:class:`~bodysweep.workflow.meshing.settings.SolverSettings`); raises ``ValueError`` (e.g.
+    :class:`~bodysweep.workflow.meshing.mesh.MeshRefused`) for a scene it cannot mesh.
 ``estimate(plan, model, settings) -> CostEstimate``
     Cells, timesteps, memory and CPU time of the case on that mesh, without solving
-    (:class:`~bodysweep.workflow.solver.cost.CostEstimate`).
+    (:class:`~bodysweep.workflow.meshing.cost.CostEstimate`).
 ``solve_excitation(case_dir, port, threads=None, timeout_s=None) -> dict``
     Drive one port of a prepared case folder and write ``excite_<port>/`` as the case-folder contract
     in DEVELOPERS.md says (``signals.h5``, ``fields_raw.h5`` for port 1, ``solver.log``,
@@ -28,9 +28,9 @@ from typing import TYPE_CHECKING, Protocol, runtime_checkable
 if TYPE_CHECKING:  # annotations only: importing the interface loads neither builders nor mesher
     from bodysweep.geometry.model import SceneModel
 
-    from .cost import CostEstimate
-    from .mesh import MeshPlan
-    from .settings import SolverSettings
+    from ..meshing.cost import CostEstimate
+    from ..meshing.mesh import MeshPlan
+    from ..meshing.settings import SolverSettings
 
 
 @runtime_checkable
@@ -54,12 +54,12 @@ class OpenEMSBackend:
     name = "openEMS"
 
     def mesh(self, model: "SceneModel", settings: "SolverSettings") -> "MeshPlan":
-        from .mesh import checked_mesh
+        from ..meshing.mesh import checked_mesh
 
         return checked_mesh(model, settings)  # a mesh the solve step would refuse is refused here already
 
     def estimate(self, plan: "MeshPlan", model: "SceneModel", settings: "SolverSettings") -> "CostEstimate":
-        from .cost import estimate
+        from ..meshing.cost import estimate
 
         return estimate(plan, model, settings)
 

@@ -17,7 +17,7 @@ from __future__ import annotations
 import math
 import re
 
-from .cost import gaussian_pulse_length_s
+from ..meshing.cost import gaussian_pulse_length_s
 
 __all__ = ["GROWTH_DB", "DIVERGED_LINE", "excitation_timesteps", "excitation_passed_timesteps", "judge_run"]
 
@@ -38,7 +38,7 @@ def excitation_timesteps(fc_Hz: float, timestep_s: float) -> int:
 
     openEMS 0.0.35 (``FDTD/excitation.cpp``, ``CalcGaussianPulsExcitation``) samples
     ``cos(2 pi f0 (t - t0)) exp(-(2 pi fc t / 3 - 3)^2)``, ``t0 = 9 / (2 pi fc)``, over ``2 t0``
-    (:func:`.cost.gaussian_pulse_length_s`): ``ceil(9 / (pi fc dt))`` timesteps.
+    (:func:`bodysweep.workflow.meshing.cost.gaussian_pulse_length_s`): ``ceil(9 / (pi fc dt))`` timesteps.
     """
     if not (fc_Hz > 0 and timestep_s > 0):
         raise ValueError(f"excitation length: need fc > 0 and a timestep > 0, got fc={fc_Hz} Hz, dt={timestep_s} s")
@@ -54,7 +54,7 @@ def excitation_passed_timesteps(fc_Hz: float, timestep_s: float, end_criterion_d
     """Timesteps until all but the end criterion's share of the pulse's energy has been fed in.
 
     The pulse's squared envelope is ``exp(-2 ((t - t0) / tau)^2)``, ``t0 = 9 / (2 pi fc)``,
-    ``tau = 3 / (2 pi fc)`` (openEMS' Gaussian excitation, :mod:`.cost`); the share of its energy after
+    ``tau = 3 / (2 pi fc)`` (openEMS' Gaussian excitation, :mod:`bodysweep.workflow.meshing.cost`); the share of its energy after
     ``t0 + x tau`` is ``erfc(sqrt(2) x) / 2`` (Gaussian integral, handbook formula). A run that ends before the
     share still to come has fallen to the end criterion (the same energy ratio the engine's criterion uses)
     was cut while the source still drove it. Never longer than the whole pulse.

@@ -50,7 +50,7 @@ import numpy as np
 from bodysweep.workflow.casefolder import SolveFolder
 
 from .child import CHILD_ERROR as _CHILD_ERROR
-from .cost import excitation_pulse
+from ..meshing.cost import excitation_pulse
 from .child import DIVERGED_RC as _DIVERGED_RC
 from .child import child_reason as _child_reason
 from .child import start_child as _start_child
@@ -89,7 +89,7 @@ def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
     """
     from bodysweep.geometry.model import SceneModel
 
-    from .settings import settings_from_dict
+    from ..meshing.settings import settings_from_dict
 
     folder = SolveFolder(case_dir)
     case = folder.read_inputs()
@@ -114,8 +114,8 @@ def load_case_inputs(case_dir) -> tuple[dict, object, object, object]:
     else:  # the solve's stored mesh (meshed and stored now if no stage did it before)
         from bodysweep.workflow.meshrecord import stored_mesh
 
-        from .cost import estimate
-        from .mesh import checked_mesh
+        from ..meshing.cost import estimate
+        from ..meshing.mesh import checked_mesh
 
         plan = stored_mesh(folder, checked_mesh, estimate, model=model, inputs=case)[0]
     return case, model, settings, plan
@@ -246,7 +246,7 @@ def centres2edges(centres, lines) -> np.ndarray:
 def _wants_engine_sar(case_dir: Path) -> bool:
     """The case's ``solver.engine_sar_average`` setting (False if unreadable)."""
     try:
-        from .settings import settings_from_dict
+        from ..meshing.settings import settings_from_dict
 
         return bool(settings_from_dict(_inputs(case_dir).get("solver") or {})
                     .engine_sar_average)
@@ -256,7 +256,7 @@ def _wants_engine_sar(case_dir: Path) -> bool:
 
 def _settings_threads(case_dir: Path) -> int:
     try:
-        from .settings import settings_from_dict
+        from ..meshing.settings import settings_from_dict
 
         return int(settings_from_dict(_inputs(case_dir).get("solver") or {}).threads)
     except Exception:
@@ -327,7 +327,7 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
             reason = "engine log has no closing summary; the run did not finish"
         if reason is None:
             case = _inputs(case_dir)
-            from .settings import settings_from_dict
+            from ..meshing.settings import settings_from_dict
 
             settings = settings_from_dict(case.get("solver") or {})
             f0 = float(case["frequency_Hz"])

@@ -3,7 +3,7 @@
 ``python -m bodysweep.workflow.solver.throughput_probe N_CELLS_PER_AXIS TIMESTEPS [GRADED] [BOUNDARY]``
 runs a cube of ``N^3`` cells (uniform, or graded with a fine centre when ``GRADED`` is 1) holding a
 lossy dielectric block, excited by a soft E-field source, for exactly ``TIMESTEPS`` steps (the end
-criterion is set out of reach), and prints the engine's console log. :func:`bodysweep.workflow.solver.cost.calibrate`
+criterion is set out of reach), and prints the engine's console log. :func:`bodysweep.workflow.meshing.cost.calibrate`
 parses that log (speed, timestep) and the peak memory of the process. Goes through
 :func:`bodysweep.workflow.solver.engine.load` like every other engine user.
 """

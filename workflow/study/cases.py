@@ -72,7 +72,7 @@ class Case:
     scene : dict
         SI scene spec dict (for ``bodysweep.geometry.scene.Scene.from_dict``).
     solver : dict
-        SI solver settings dict (for ``bodysweep.workflow.solver.settings.settings_from_dict``).
+        SI solver settings dict (for ``bodysweep.workflow.meshing.settings.settings_from_dict``).
     sar : dict
         ``masses_kg``, ``limits`` (``mass_kg``, ``limit_W_per_kg``, ``source``), ``max_air_fraction``.
     excite_ports : tuple of int
@@ -365,7 +365,7 @@ def expand(study: Study, *, check_scene: bool = True) -> list[Case]:
     """
     from bodysweep.geometry.scene import Scene
 
-    from ..solver.settings import settings_from_dict
+    from ..meshing.settings import settings_from_dict
 
     scene_resolve = _resolver(Scene.from_dict) if check_scene else None
     solver_resolve = _resolver(settings_from_dict)

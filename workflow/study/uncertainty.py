@@ -83,7 +83,7 @@ def _changed_tissues(scene: dict, f_Hz: float, factor: float) -> dict:
 
 def variant(case: dict, component: str, cfg: dict) -> dict:
     """The case dict of one component run of ``case`` (a fresh dict with its own ``case_id``)."""
-    from bodysweep.workflow.solver.settings import settings_from_dict
+    from bodysweep.workflow.meshing.settings import settings_from_dict
 
     from .cases import case_identities
 

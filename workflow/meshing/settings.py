@@ -37,7 +37,7 @@ class SolverSettings:
     min_cell_m : float or None
         Mesh lines closer than this are merged into one (the more important one is kept), so that no
         sliver cell sets the timestep. ``None`` derives it: a quarter of the finest cell size the
-        geometry asks for (see :func:`bodysweep.workflow.solver.mesh.auto_mesh`).
+        geometry asks for (see :func:`bodysweep.workflow.meshing.mesh.auto_mesh`).
     port_cells : int
         Cells across each port feed gap; the gap length divided by this is also the fine cell size
         used next to the conductor edges of that antenna. Allowed 1 ... 20.
