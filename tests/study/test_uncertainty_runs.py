@@ -32,6 +32,9 @@ def test_each_run_changes_its_one_input(tmp_path):
     assert mesh["solver"]["cells_per_wavelength"] == pytest.approx(1.5 * base["solver"]["cells_per_wavelength"])
     assert mesh["solver"]["port_cells"] == 2 * base["solver"]["port_cells"]
     assert mesh["solver"]["min_cells_per_layer"] == 2 * base["solver"]["min_cells_per_layer"]
+    r = base["solver"]["max_growth_ratio"]  # grading halved toward uniform, never below the schema's 1.05
+    assert mesh["solver"]["max_growth_ratio"] == pytest.approx(max(1.05, 1 + (r - 1) / 2))
+    assert mesh["solver"]["max_growth_ratio"] < r
     assert mesh["scene"] == base["scene"]
     far = ub.variant(base, "boundary", cfg)
     assert far["solver"]["air_margin_wavelengths"] == pytest.approx(base["solver"]["air_margin_wavelengths"] + 0.25)
