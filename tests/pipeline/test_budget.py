@@ -18,7 +18,7 @@ pytestmark = [pytest.mark.pipeline]
 def _refusal(capsys, argv, tmp_path):
     rc = cli.main(argv)
     cap = capsys.readouterr()
-    lines = [ln for ln in cap.err.splitlines() if ln.strip()]
+    lines = [ln for ln in cap.err.splitlines() if ln.strip() and not ln.startswith("warning: ")]
     assert rc == 4, cap.out + cap.err
     assert len(lines) == 1 and lines[0].startswith("bodysweep: error: over budget: "), cap.err
     assert "--accept-cost" in lines[0]
