@@ -25,7 +25,7 @@ def _cases(tmp_path, section, edit=None):
 
 
 def test_each_run_changes_its_one_input(tmp_path):
-    study, cases = _cases(tmp_path, {"cases": "all"})
+    study, cases = _cases(tmp_path, {"cases": "all", "mesh_run_at_least": "none"})
     cfg = ub.budget_settings(study.raw)
     base = cases[0]
     mesh = ub.variant(base, "mesh", cfg)
@@ -53,6 +53,32 @@ def test_each_run_changes_its_one_input(tmp_path):
     for v in (mesh, far, end, tissue):  # the identity verify recomputes from case.json
         assert case_json2case_id(v) == v["case_id"]
         assert v["budget"] == [{"of": base["case_id"], "component": v["parameters"]["uncertainty_run"]}]
+
+
+def test_mesh_run_is_at_least_the_default_preset(tmp_path):
+    # the refinement step from a coarse case (6 per wavelength, port_cells 1, growth 2) stays far coarser than the
+    # standard preset; by default the mesh run takes each mesh key no coarser than the preset's
+    from bodysweep.workflow.meshing.settings import preset
+
+    study, cases = _cases(tmp_path, {"cases": "all"})
+    cfg = ub.budget_settings(study.raw)
+    assert cfg["mesh_run_at_least"] == "standard"  # the schema default
+    base, std = cases[0], preset("standard")
+    assert base["solver"]["cells_per_wavelength"] * 1.5 < std.cells_per_wavelength  # the floor matters here
+    mesh = ub.variant(base, "mesh", cfg)["solver"]
+    assert mesh["cells_per_wavelength"] == pytest.approx(std.cells_per_wavelength)
+    assert mesh["port_cells"] == max(2 * base["solver"]["port_cells"], std.port_cells)
+    assert mesh["min_cells_per_layer"] == max(2 * base["solver"]["min_cells_per_layer"], std.min_cells_per_layer)
+    assert mesh["max_growth_ratio"] == pytest.approx(min(1 + (base["solver"]["max_growth_ratio"] - 1) / 2,
+                                                         std.max_growth_ratio))
+    # a case already finer than the floor keeps the plain refinement step
+    fine = preset("fine")
+    study, cases = _cases(tmp_path, {"cases": "all"}, lambda d: d["solver"].update(
+        cells_per_wavelength=fine.cells_per_wavelength, port_cells=fine.port_cells,
+        min_cells_per_layer=fine.min_cells_per_layer, max_growth_ratio=fine.max_growth_ratio))
+    mesh = ub.variant(cases[0], "mesh", ub.budget_settings(study.raw))["solver"]
+    assert mesh["cells_per_wavelength"] == pytest.approx(1.5 * fine.cells_per_wavelength)
+    assert mesh["port_cells"] == 2 * fine.port_cells
 
 
 def test_without_tissue_the_tissue_run_is_the_case_itself(tmp_path):
