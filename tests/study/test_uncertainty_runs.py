@@ -55,14 +55,15 @@ def test_each_run_changes_its_one_input(tmp_path):
         assert v["budget"] == [{"of": base["case_id"], "component": v["parameters"]["uncertainty_run"]}]
 
 
-def test_mesh_run_is_at_least_the_default_preset(tmp_path):
+def test_mesh_run_at_least_a_preset(tmp_path):
     # the refinement step from a coarse case (6 per wavelength, port_cells 1, growth 2) stays far coarser than the
-    # standard preset; by default the mesh run takes each mesh key no coarser than the preset's
+    # standard preset; with mesh_run_at_least the mesh run takes each mesh key no coarser than the preset's
     from bodysweep.workflow.meshing.settings import preset
 
     study, cases = _cases(tmp_path, {"cases": "all"})
+    assert ub.budget_settings(study.raw)["mesh_run_at_least"] == "none"  # the schema default: the step alone
+    study, cases = _cases(tmp_path, {"cases": "all", "mesh_run_at_least": "standard"})
     cfg = ub.budget_settings(study.raw)
-    assert cfg["mesh_run_at_least"] == "standard"  # the schema default
     base, std = cases[0], preset("standard")
     assert base["solver"]["cells_per_wavelength"] * 1.5 < std.cells_per_wavelength  # the floor matters here
     mesh = ub.variant(base, "mesh", cfg)["solver"]
@@ -73,7 +74,7 @@ def test_mesh_run_is_at_least_the_default_preset(tmp_path):
                                                          std.max_growth_ratio))
     # a case already finer than the floor keeps the plain refinement step
     fine = preset("fine")
-    study, cases = _cases(tmp_path, {"cases": "all"}, lambda d: d["solver"].update(
+    study, cases = _cases(tmp_path, {"cases": "all", "mesh_run_at_least": "standard"}, lambda d: d["solver"].update(
         cells_per_wavelength=fine.cells_per_wavelength, port_cells=fine.port_cells,
         min_cells_per_layer=fine.min_cells_per_layer, max_growth_ratio=fine.max_growth_ratio))
     mesh = ub.variant(cases[0], "mesh", ub.budget_settings(study.raw))["solver"]

@@ -9,10 +9,8 @@ changing one thing:
     (cells at most half as large next to the antennas' conductors and across the tissue layers, where the
     peak SAR lies), ``max_growth_ratio - 1`` halved (down to 1.05: on a graded mesh the cells between the fine
     zones and the wavelength limit follow the grading, so without it the denser run had barely more cells:
-    the demo's mesh run had as many cells as its case), ``min_cell_m`` halved when set; and then at least the
-    resolution of the preset ``mesh_run_at_least`` (default ``standard``: each of those four keys no coarser than
-    the preset's). One refinement step from a mesh far from convergence understates its error: on the demo's
-    403 MHz loop case the one-step run moved peak 1 g SAR by -8.6 %, the standard preset's mesh by -35 %;
+    the demo's mesh run had as many cells as its case), ``min_cell_m`` halved when set; with
+    ``mesh_run_at_least`` set to a preset, also no coarser than that preset's mesh (each of those four keys);
 ``boundary``
     ``air_margin_wavelengths`` + ``boundary_shift_wavelengths`` (the absorbing boundary moved outward);
 ``tissue``
@@ -101,7 +99,7 @@ def variant(case: dict, component: str, cfg: dict) -> dict:
         solver["max_growth_ratio"] = max(1.05, 1.0 + (float(solver["max_growth_ratio"]) - 1.0) / 2.0)
         if solver.get("min_cell_m") is not None:
             solver["min_cell_m"] = float(solver["min_cell_m"]) / 2
-        floor = cfg.get("mesh_run_at_least", "standard")
+        floor = cfg.get("mesh_run_at_least", "none")
         if floor and floor != "none":  # and at least that preset's resolution, key by key
             from bodysweep.workflow.meshing.settings import preset
 
