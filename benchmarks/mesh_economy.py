@@ -151,7 +151,7 @@ def run_case(name: str, keep: Path) -> list[str]:
             tol = 5.0 if mesh == "standard" else 15.0
             verdict = [f"SAR {'met' if max(abs(d1), abs(d10)) <= tol else 'MISSED'} (<= {tol:g} %)"]
             if mesh == "standard":
-                verdict.append(f"|S21| {'met' if abs(ds21) <= 0.5 else 'MISSED'} (<= 0.5 dB)")
+                verdict.append(f"\\|S21\\| {'met' if abs(ds21) <= 0.5 else 'MISSED'} (<= 0.5 dB)")
             row += " " + "; ".join(verdict) + " |"
         else:
             row += " – |"
