@@ -370,6 +370,9 @@ def finish_case(case_dir, solve_dir=None) -> dict:
     metrics["cells"] = statuses[exc_ports[0]].get("cells")
     metrics["timesteps"] = int(sum(int(s.get("timesteps") or 0) for s in statuses.values()))
     metrics["decay_reached"] = all(bool(s.get("decay_reached")) for s in statuses.values())
+    tails = [float(s["pulse_tail_dB"]) for s in statuses.values() if s.get("pulse_tail_dB") is not None]
+    if tails:
+        metrics["pulse_tail_dB"] = max(tails)
     from .post import flags
 
     metrics["energy_balance"] = flags.energy_balance(metrics.get("absorbed_fraction_all"), S0[0, 0],

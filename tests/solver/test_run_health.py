@@ -110,6 +110,37 @@ def _case_dir(tmp_path: Path, name: str, **solver) -> Path:
 
 
 @pytest.mark.solver
+def test_a_run_stopped_a_little_early_by_its_energy_criterion_is_kept_and_flagged():
+    # the energy criterion (-30 dB) fires a little before the share of the pulse still to come has fallen to
+    # -30 dB: kept, with that share recorded (checked against scipy.integrate.quad of the envelope); far earlier
+    # (more than PULSE_TAIL_SLACK_DB above the criterion still to come): failed
+    from scipy.integrate import quad
+
+    from bodysweep.workflow.post import flags
+
+    dt = 1.81376e-12
+    tau, t0 = 3 / (2 * math.pi * FC), 9 / (2 * math.pi * FC)
+    f = lambda s: math.exp(-2 * ((s - t0) / tau) ** 2)  # noqa: E731
+    n_pass = health.excitation_passed_timesteps(FC, dt, -30.0)
+    stop = int(0.975 * n_pass)  # as the demo's boundary run: 9639 of 9890 timesteps
+    v = health.judge_run(engine.parse_engine_log(_log([(stop, "3.13e-23", "30.10")], done=stop)), FC, -30.0)
+    assert v["reason"] is None and v["decay_reached"], v
+    share = quad(f, stop * dt, t0 + 8 * tau)[0] / quad(f, t0 - 8 * tau, t0 + 8 * tau)[0]
+    assert v["pulse_tail_dB"] == pytest.approx(10 * math.log10(share), abs=0.01)
+    assert -30.0 < v["pulse_tail_dB"] <= -30.0 + health.PULSE_TAIL_SLACK_DB
+    w = flags.pulse_tail_warning(v["pulse_tail_dB"])
+    assert w[0]["code"] == "pulse_tail" and "lower solver.end_criterion_dB" in w[0]["message"]
+    assert flags.case_warnings({"pulse_tail_dB": v["pulse_tail_dB"]}, {})[-1]["code"] == "pulse_tail"
+    early = int(0.7 * n_pass)
+    v = health.judge_run(engine.parse_engine_log(_log([(early, "3.13e-23", "30.10")], done=early)), FC, -30.0)
+    assert "before the excitation pulse had passed" in v["reason"] and "pulse_tail_dB" not in v
+    # the cap on timesteps is never excused
+    cap = "RunFDTD: Warning: Max. number of timesteps was reached before the end-criteria of -30dB was reached... \n"
+    v = health.judge_run(engine.parse_engine_log(_log([(stop, "3.13e-18", " 0.00")]) + cap + DONE.format(ts=stop)),
+                         FC, -30.0)
+    assert "raise max_timesteps" in v["reason"]
+
+
 def test_run_ended_before_its_pulse_passed_is_failed(tmp_path):
     from bodysweep.workflow.solver.run import solve_excitation
 

@@ -20,6 +20,10 @@ Codes
     means the accepted power (or the fields) are wrong by at least that much.
 ``end_criterion``
     An excitation did not reach its energy-decay end criterion.
+``pulse_tail``
+    The engine's energy criterion stopped an excitation a little before the pulse's energy still to come had
+    fallen to the end criterion (at most ten times more was still to come, else the run fails): the
+    spectrum is cut by that share.
 ``thin_wire``
     An antenna is a dipole of wire without a radius (``wire_radius_mm: 0`` and no ``strip_width_mm``): a line of
     metal edges with no cross-section. Its effective radius is a fraction of the mesh cell beside it, so its
@@ -179,6 +183,16 @@ def decay_warning(decay_reached: bool | None) -> list[dict]:
     return []
 
 
+def pulse_tail_warning(tail_dB: float | None, end_criterion_dB: float | None = None) -> list[dict]:
+    """``pulse_tail`` when an excitation was stopped with ``tail_dB`` of the pulse's energy still to come."""
+    if tail_dB is None:
+        return []
+    crit = "" if end_criterion_dB is None else f" (end criterion {float(end_criterion_dB):g} dB)"
+    return [{"code": "pulse_tail", "message": f"the engine's energy criterion stopped an excitation with "
+             f"{float(tail_dB):.1f} dB of the excitation pulse's energy still to come{crit}: S-parameters and "
+             "fields miss that share of the pulse, lower solver.end_criterion_dB"}]
+
+
 _ROLES = (("external", "external antenna (port 1)"), ("implant", "implant antenna (port 2)"))
 
 
@@ -211,6 +225,7 @@ def case_warnings(metrics: Mapping, scene: Mapping, grid_bounds_m=None) -> list[
     out += normalisation_warning(s11)
     out += balance_warning(energy_balance(metrics.get("absorbed_fraction_all"), s11, s21))
     out += decay_warning(metrics.get("decay_reached"))
+    out += pulse_tail_warning(metrics.get("pulse_tail_dB"))
     out += thin_wire_warnings(scene)
     return out
 

@@ -321,6 +321,8 @@ def solve_excitation(case_dir, port: int, threads: int | None = None, timeout_s:
         status.update(decay_reached=decay, timestep_s=info["timestep_s"],
                       excitation_timesteps=verdict["excitation_timesteps"],
                       excitation_passed_timesteps=verdict["excitation_passed_timesteps"])
+        if verdict.get("pulse_tail_dB") is not None:
+            status["pulse_tail_dB"] = verdict["pulse_tail_dB"]
         if reason is None and rc == _DIVERGED_RC:  # stopped by us mid-write: the probe files may be cut
             reason = verdict["reason"] or "engine stopped at a non-finite field energy"
         if reason is None and not info["finished"]:
